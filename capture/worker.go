@@ -1,0 +1,183 @@
+package capture
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"gocv.io/x/gocv"
+
+	"tallyd/capture/mailbox"
+)
+
+// Pace says how a recorded or generated source is replayed.
+type Pace string
+
+// Paces.
+const (
+	// PaceMax hands on every frame as fast as the consumer takes them: no
+	// frame is dropped by the hand-over and results are deterministic.
+	PaceMax Pace = "max"
+	// PaceRealtime follows the source clock; when the consumer falls behind,
+	// the newest frame wins and the replaced ones are counted as dropped.
+	PaceRealtime Pace = "realtime"
+)
+
+// ParsePace checks a pace name.
+func ParsePace(s string) (Pace, error) {
+	switch Pace(s) {
+	case PaceMax, PaceRealtime:
+		return Pace(s), nil
+	}
+	return "", fmt.Errorf("unknown pace %q (want max or realtime)", s)
+}
+
+// Stats is a worker's health and counters.
+type Stats struct {
+	Source         string
+	State          string // "running", "ended", "failed", "stopped"
+	Err            string // last error when failed
+	Read           int64  // frames decoded
+	DroppedRate    int64  // frames skipped to hold the target rate
+	DroppedMailbox int64  // frames replaced by a newer one before the consumer took them
+	LastFrame      time.Time
+}
+
+// Dropped is every frame that was read but not handed on.
+func (s Stats) Dropped() int64 { return s.DroppedRate + s.DroppedMailbox }
+
+// Worker reads one source on its own goroutine and posts frames to Out.
+type Worker struct {
+	ID     string
+	Out    *mailbox.Mailbox[*Frame]
+	src    Reader
+	info   Info
+	pace   Pace
+	target float64 // frames per second to hand on; 0 = all
+	log    *slog.Logger
+
+	read, dropRate atomic.Int64
+	lastFrame      atomic.Int64 // unix nanos
+	mu             sync.Mutex
+	state, err     string
+}
+
+// NewWorker makes a worker for an opened source. target is the processing
+// rate (0: every frame).
+func NewWorker(id string, src Reader, info Info, pace Pace, target float64, log *slog.Logger) *Worker {
+	return &Worker{
+		ID:     id,
+		Out:    mailbox.New(func(f *Frame) { f.Close() }),
+		src:    src,
+		info:   info,
+		pace:   pace,
+		target: target,
+		log:    log.With("source", id),
+		state:  "running",
+	}
+}
+
+// Run reads until the source ends, fails or ctx is cancelled, then closes
+// Out and the source. It returns nil at the end of a stream.
+func (w *Worker) Run(ctx context.Context) (err error) {
+	defer func() {
+		w.Out.Close()
+		_ = w.src.Close()
+		state := "ended"
+		switch {
+		case ctx.Err() != nil:
+			state, err = "stopped", nil
+		case err != nil:
+			state = "failed"
+		}
+		w.setState(state, err)
+	}()
+	var (
+		start   = time.Now()
+		period  time.Duration
+		nextDue time.Duration
+		seq     int64
+	)
+	if w.target > 0 {
+		period = time.Duration(float64(time.Second) / w.target)
+	}
+	sleepToClock := w.pace == PaceRealtime && !w.info.Live
+	for ctx.Err() == nil {
+		m := gocv.NewMat()
+		pts, rerr := w.src.Read(&m)
+		if rerr != nil {
+			_ = m.Close()
+			if errors.Is(rerr, ErrEndOfStream) {
+				return nil
+			}
+			return rerr
+		}
+		w.read.Add(1)
+		now := time.Now()
+		w.lastFrame.Store(now.UnixNano())
+		s := seq
+		seq++
+		if period > 0 {
+			// Hold the target rate on the source clock; a tenth of a period
+			// of slack absorbs timestamp jitter.
+			if pts+period/10 < nextDue {
+				w.dropRate.Add(1)
+				_ = m.Close()
+				continue
+			}
+			nextDue += period
+			if nextDue < pts {
+				nextDue = pts + period
+			}
+		}
+		f := &Frame{Source: w.ID, Seq: s, PTS: pts, Captured: now, Mat: m}
+		if sleepToClock {
+			if d := time.Until(start.Add(pts)); d > 0 {
+				select {
+				case <-time.After(d):
+				case <-ctx.Done():
+					// Stopping: a frame already read is still handed on
+					// (or counted as dropped), never lost.
+					w.Out.Put(f)
+					return nil
+				}
+			}
+		}
+		if w.pace == PaceMax && !w.info.Live {
+			if perr := w.Out.PutWait(ctx, f); perr != nil {
+				w.Out.Put(f)
+				return nil
+			}
+		} else {
+			w.Out.Put(f)
+		}
+	}
+	return nil
+}
+
+func (w *Worker) setState(state string, err error) {
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	w.state = state
+	if err != nil {
+		w.err = err.Error()
+	}
+}
+
+// Stats reports the worker's health and counters; safe from any goroutine.
+func (w *Worker) Stats() Stats {
+	w.mu.Lock()
+	st := Stats{Source: w.ID, State: w.state, Err: w.err}
+	w.mu.Unlock()
+	st.Read = w.read.Load()
+	st.DroppedRate = w.dropRate.Load()
+	st.DroppedMailbox = w.Out.Dropped()
+	if ns := w.lastFrame.Load(); ns != 0 {
+		st.LastFrame = time.Unix(0, ns)
+	}
+	return st
+}

@@ -1,0 +1,221 @@
+package events
+
+import (
+	"bytes"
+	"crypto/sha256"
+	"encoding/binary"
+	"encoding/hex"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"strings"
+	"time"
+)
+
+// SpecVersion is the CloudEvents specification version events are written in.
+const SpecVersion = "1.0"
+
+// ContentType is the datacontenttype of every event: data is a JSON object.
+const ContentType = "application/json"
+
+// Event kinds, as carried in Data.Kind and in the last NATS subject token.
+const (
+	KindIn    = "in"    // line crossed from its left to its right side
+	KindOut   = "out"   // line crossed from its right to its left side
+	KindEnter = "enter" // track came inside a zone
+	KindExit  = "exit"  // track left a zone, or its stay was closed
+	KindDwell = "dwell" // track stayed inside a zone for the rule's threshold
+)
+
+// Event types (the CloudEvents "type" attribute).
+const (
+	TypeLineIn    = "tallyd.line.in"
+	TypeLineOut   = "tallyd.line.out"
+	TypeZoneEnter = "tallyd.zone.enter"
+	TypeZoneExit  = "tallyd.zone.exit"
+	TypeZoneDwell = "tallyd.zone.dwell"
+)
+
+// Exit reasons carried in Data.Reason when a stay is closed by something
+// other than the track leaving the zone.
+const (
+	ReasonTrackEnded = "track_ended" // the tracker dropped the track while inside
+	ReasonStreamEnd  = "stream_end"  // the source reached its end
+	ReasonSourceLost = "source_lost" // the source went away
+)
+
+// typeOfKind maps each kind to its CloudEvents type.
+var typeOfKind = map[string]string{
+	KindIn:    TypeLineIn,
+	KindOut:   TypeLineOut,
+	KindEnter: TypeZoneEnter,
+	KindExit:  TypeZoneExit,
+	KindDwell: TypeZoneDwell,
+}
+
+// Event is one counting event in CloudEvents 1.0 structured-mode JSON.
+type Event struct {
+	SpecVersion     string    `json:"specversion"`     // always "1.0"
+	ID              string    `json:"id"`              // stable for the same input
+	Source          string    `json:"source"`          // "/tallyd/<site>/<source>"
+	Type            string    `json:"type"`            // one of the Type constants
+	Subject         string    `json:"subject"`         // rule name
+	Time            time.Time `json:"time"`            // Meta.Start + source timestamp
+	DataContentType string    `json:"datacontenttype"` // "application/json"
+	Data            Data      `json:"data"`
+}
+
+// Data is the payload of an Event.
+type Data struct {
+	Site       string     `json:"site"`
+	Source     string     `json:"source"`
+	Rule       string     `json:"rule"`
+	Kind       string     `json:"kind"` // in|out|enter|exit|dwell
+	TrackID    int64      `json:"track_id"`
+	Class      string     `json:"class"`
+	SourceTime float64    `json:"source_time_s"` // seconds since stream start
+	Frame      int64      `json:"frame"`
+	Box        [4]float64 `json:"box"`                   // x1,y1,x2,y2 in source pixels
+	DwellS     *float64   `json:"dwell_s,omitempty"`     // exit and dwell: time inside so far
+	Occupancy  *int       `json:"occupancy,omitempty"`   // enter and exit: tracks inside after the frame
+	Reason     string     `json:"reason,omitempty"`      // exit: why the stay was closed, if not by leaving
+	ThresholdS *float64   `json:"threshold_s,omitempty"` // dwell: the rule's threshold
+}
+
+// EventSource is the CloudEvents source attribute for a site and a source.
+func EventSource(site, source string) string { return "/tallyd/" + site + "/" + source }
+
+// EventID is the stable id of an event: the hex of a SHA-256 over its
+// identifying fields, cut to 128 bits. The same input always gives the same
+// id, so a replayed stream can be de-duplicated downstream.
+func EventID(site, source, rule, kind string, trackID, frame int64) string {
+	h := sha256.New()
+	for _, s := range []string{site, source, rule, kind} {
+		var n [8]byte
+		binary.BigEndian.PutUint64(n[:], uint64(len(s)))
+		h.Write(n[:])
+		h.Write([]byte(s))
+	}
+	var n [16]byte
+	binary.BigEndian.PutUint64(n[:8], uint64(trackID))
+	binary.BigEndian.PutUint64(n[8:], uint64(frame))
+	h.Write(n[:])
+	return hex.EncodeToString(h.Sum(nil)[:16])
+}
+
+// NATSSubject is the subject the event is published on:
+// "<prefix>.<site>.<source>.<rule>.<kind>". Tokens are not checked here; the
+// bus package refuses to publish on an invalid subject.
+func (e Event) NATSSubject(prefix string) string {
+	return strings.Join([]string{prefix, e.Data.Site, e.Data.Source, e.Data.Rule, e.Data.Kind}, ".")
+}
+
+// ErrMalformed is wrapped by every error Parse returns.
+var ErrMalformed = errors.New("malformed event")
+
+// AttrError is a Parse error about one attribute; Attr is the CloudEvents
+// attribute name, or "data.<field>" for a payload field.
+type AttrError struct {
+	Attr    string
+	Problem string
+}
+
+// Error names the attribute and the problem.
+func (e *AttrError) Error() string {
+	return fmt.Sprintf("%s: attribute %q: %s", ErrMalformed, e.Attr, e.Problem)
+}
+
+// Unwrap makes errors.Is(err, ErrMalformed) hold.
+func (e *AttrError) Unwrap() error { return ErrMalformed }
+
+// Parse decodes one structured-mode event strictly: the JSON must be an
+// object whose attribute names match exactly (CloudEvents names are lower
+// case); specversion must be "1.0"; id, source and type must be non-empty
+// strings; type must be a tallyd type; datacontenttype, when present, must be
+// JSON; time, when present, RFC 3339; data must be an object whose kind
+// matches type. Unknown attributes (CloudEvents extensions) are accepted and
+// dropped.
+func Parse(b []byte) (Event, error) {
+	if !bytes.HasPrefix(bytes.TrimLeft(b, " \t\r\n"), []byte("{")) {
+		return Event{}, fmt.Errorf("%w: not a JSON object", ErrMalformed)
+	}
+	var attrs map[string]json.RawMessage
+	if err := json.Unmarshal(b, &attrs); err != nil {
+		return Event{}, fmt.Errorf("%w: %w", ErrMalformed, err)
+	}
+	var ev Event
+	var err error
+	if ev.SpecVersion, err = stringAttr(attrs, "specversion", true); err != nil {
+		return Event{}, err
+	}
+	if ev.SpecVersion != SpecVersion {
+		return Event{}, &AttrError{"specversion", fmt.Sprintf("want %q, found %q", SpecVersion, ev.SpecVersion)}
+	}
+	if ev.ID, err = stringAttr(attrs, "id", true); err != nil {
+		return Event{}, err
+	}
+	if ev.Source, err = stringAttr(attrs, "source", true); err != nil {
+		return Event{}, err
+	}
+	if ev.Type, err = stringAttr(attrs, "type", true); err != nil {
+		return Event{}, err
+	}
+	if ev.Subject, err = stringAttr(attrs, "subject", false); err != nil {
+		return Event{}, err
+	}
+	if ev.DataContentType, err = stringAttr(attrs, "datacontenttype", false); err != nil {
+		return Event{}, err
+	}
+	if ct := ev.DataContentType; ct != "" && ct != ContentType && !strings.HasPrefix(ct, ContentType+";") {
+		return Event{}, &AttrError{"datacontenttype", fmt.Sprintf("want %q, found %q", ContentType, ct)}
+	}
+	ts, err := stringAttr(attrs, "time", false)
+	if err != nil {
+		return Event{}, err
+	}
+	if ts != "" {
+		if ev.Time, err = time.Parse(time.RFC3339Nano, ts); err != nil {
+			return Event{}, &AttrError{"time", fmt.Sprintf("not RFC 3339: %q", ts)}
+		}
+	}
+	wantKind := ""
+	for k, t := range typeOfKind {
+		if t == ev.Type {
+			wantKind = k
+		}
+	}
+	if wantKind == "" {
+		return Event{}, &AttrError{"type", fmt.Sprintf("unknown type %q", ev.Type)}
+	}
+	raw, ok := attrs["data"]
+	if !ok || !bytes.HasPrefix(bytes.TrimLeft(raw, " \t\r\n"), []byte("{")) {
+		return Event{}, &AttrError{"data", "missing or not a JSON object"}
+	}
+	if err := json.Unmarshal(raw, &ev.Data); err != nil {
+		return Event{}, &AttrError{"data", err.Error()}
+	}
+	if ev.Data.Kind != wantKind {
+		return Event{}, &AttrError{"data.kind", fmt.Sprintf("want %q for type %q, found %q", wantKind, ev.Type, ev.Data.Kind)}
+	}
+	return ev, nil
+}
+
+// stringAttr reads one string attribute; required ones must be present and
+// non-empty.
+func stringAttr(attrs map[string]json.RawMessage, name string, required bool) (string, error) {
+	raw, ok := attrs[name]
+	if !ok || string(raw) == "null" {
+		if required {
+			return "", &AttrError{name, "missing"}
+		}
+		return "", nil
+	}
+	var s string
+	if err := json.Unmarshal(raw, &s); err != nil {
+		return "", &AttrError{name, "not a string"}
+	}
+	if required && s == "" {
+		return "", &AttrError{name, "empty"}
+	}
+	return s, nil
+}

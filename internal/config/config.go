@@ -1,0 +1,180 @@
+// Package config reads and checks a tallyd site file: which cameras or
+// recordings to read, how to detect and track, which lines and zones to count
+// and where to publish the events.
+//
+// Coordinates: every rule coordinate is a fraction of the source frame, x in
+// 0..1 from the left edge and y in 0..1 from the top edge, so a site file does
+// not change when a camera's resolution does. The daemon converts them to
+// source pixels once the first frame's size is known. Distances given as
+// fractions (line and zone bands) are fractions of the frame height.
+package config
+
+import (
+	"time"
+)
+
+// Config is one site file.
+type Config struct {
+	// Site names the place being counted; it is a NATS subject token.
+	Site     string   `yaml:"site"`
+	Sources  []Source `yaml:"sources"`
+	Detector Detector `yaml:"detector"`
+	Tracker  Tracker  `yaml:"tracker"`
+	Rules    []Rule   `yaml:"rules"`
+	Output   Output   `yaml:"output"`
+	Log      Log      `yaml:"log"`
+
+	// File is the path the config was read from ("" when built in code).
+	File  string `yaml:"-"`
+	lines lineIndex
+}
+
+// Source is one camera stream, recorded file or generated scene. Exactly one
+// of File, URL and Scene is set.
+type Source struct {
+	ID    string `yaml:"id"`
+	File  string `yaml:"file"`  // recorded video, relative to the config file's folder
+	URL   string `yaml:"url"`   // stream URL read through OpenCV's FFmpeg backend
+	Scene *Scene `yaml:"scene"` // generated ferry-terminal scene with known truth
+	// FPS is the target processing rate; frames beyond it are dropped on
+	// purpose (counted). 0 processes every frame the source delivers.
+	FPS float64 `yaml:"fps"`
+	// StartTime is the wall-clock time of the source's first frame, used for
+	// event times of recorded and generated sources. Empty means the time the
+	// run started. RFC 3339.
+	StartTime string `yaml:"start_time"`
+}
+
+// Scene configures a generated scene source.
+type Scene struct {
+	Seed      int64    `yaml:"seed"`
+	Width     int      `yaml:"width"`
+	Height    int      `yaml:"height"`
+	FPS       float64  `yaml:"fps"`
+	Duration  Duration `yaml:"duration"`
+	Noise     *float64 `yaml:"noise"`
+	Crossings int      `yaml:"crossings"`
+	Visitors  int      `yaml:"visitors"`
+}
+
+// Detector selects and configures the detector shared by all sources.
+type Detector struct {
+	// Kind is "motion" (background subtraction, no weights) or "file"
+	// (precomputed detections in the MOTChallenge text format).
+	Kind string `yaml:"kind"`
+	// Class is the class name given to detections of detectors that do not
+	// classify (motion, file).
+	Class  string       `yaml:"class"`
+	Motion Motion       `yaml:"motion"`
+	File   DetectorFile `yaml:"file"`
+}
+
+// Motion configures the background-subtraction detector.
+type Motion struct {
+	History      int     `yaml:"history"`       // frames the background model remembers
+	VarThreshold float64 `yaml:"var_threshold"` // squared Mahalanobis distance for foreground
+	LearningRate float64 `yaml:"learning_rate"` // background update rate after warm-up (0..1)
+	WarmupFrames int     `yaml:"warmup_frames"` // frames learned at OpenCV's automatic rate first
+	MinArea      float64 `yaml:"min_area"`      // smallest box area kept, in source pixels
+	OpenKernel   int     `yaml:"open_kernel"`   // morphological opening kernel size (px), removes specks
+	CloseKernel  int     `yaml:"close_kernel"`  // morphological closing kernel size (px), fills holes
+}
+
+// DetectorFile configures the detections-file detector.
+type DetectorFile struct {
+	// Paths maps a source ID to its detections file.
+	Paths    map[string]string `yaml:"paths"`
+	MinScore float64           `yaml:"min_score"`
+}
+
+// Tracker configures the tracker used for every source.
+type Tracker struct {
+	Kind string `yaml:"kind"` // "iou"
+	IoU  IoU    `yaml:"iou"`
+}
+
+// IoU configures the IoU tracker.
+type IoU struct {
+	MinIoU    float64 `yaml:"min_iou"`
+	BirthHits int     `yaml:"birth_hits"`
+	MaxMisses int     `yaml:"max_misses"`
+	PerClass  bool    `yaml:"per_class"`
+}
+
+// Rule is a counting line or a zone on one source. Exactly one of Line and
+// Zone is set.
+type Rule struct {
+	Name    string       `yaml:"name"`
+	Source  string       `yaml:"source"`
+	Line    [][2]float64 `yaml:"line"` // two points A, B; "in" is left→right of A→B as drawn
+	Zone    [][2]float64 `yaml:"zone"` // polygon, at least three points, not self-intersecting
+	Classes []string     `yaml:"classes"`
+	// Anchor is the point of a box tested against the rule: "bottom-center"
+	// (default; where feet touch the floor), "center" or "top-center".
+	Anchor string `yaml:"anchor"`
+	// Band is the hysteresis half-width as a fraction of the frame height: an
+	// anchor this close to the line or zone edge keeps its previous side.
+	Band *float64 `yaml:"band"`
+	// Dwell raises one alert per stay when a track stays in the zone this long.
+	Dwell Duration `yaml:"dwell"`
+}
+
+// Output says where events go.
+type Output struct {
+	NATS  NATS   `yaml:"nats"`
+	JSONL string `yaml:"jsonl"` // optional JSON-lines file, relative to the config file's folder
+}
+
+// NATS configures the event bus.
+type NATS struct {
+	// URL of a NATS server; empty starts an embedded server.
+	URL      string   `yaml:"url"`
+	Embedded Embedded `yaml:"embedded"`
+	// Prefix is the first subject token: <prefix>.<site>.<source>.<rule>.<kind>.
+	Prefix string `yaml:"prefix"`
+}
+
+// Embedded configures the in-process NATS server.
+type Embedded struct {
+	Host string `yaml:"host"`
+	Port int    `yaml:"port"` // 0 picks a free port
+}
+
+// Log configures logging.
+type Log struct {
+	Level  string `yaml:"level"`  // debug, info, warn, error
+	Format string `yaml:"format"` // text or json
+}
+
+// Duration is a time.Duration written as "10s", "1m30s".
+type Duration struct{ time.Duration }
+
+// Kind reports whether the rule is a "line" or a "zone".
+func (r Rule) Kind() string {
+	if len(r.Zone) > 0 {
+		return "zone"
+	}
+	return "line"
+}
+
+// SourceByID returns the source with the given ID.
+func (c *Config) SourceByID(id string) (Source, bool) {
+	for _, s := range c.Sources {
+		if s.ID == id {
+			return s, true
+		}
+	}
+	return Source{}, false
+}
+
+// Kind reports "scene", "file" or "url".
+func (s Source) Kind() string {
+	switch {
+	case s.Scene != nil:
+		return "scene"
+	case s.File != "":
+		return "file"
+	default:
+		return "url"
+	}
+}

@@ -1,0 +1,424 @@
+package pipeline
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"tallyd/capture"
+	"tallyd/capture/mailbox"
+	"tallyd/capture/scene"
+	"tallyd/events"
+	"tallyd/internal/config"
+	"tallyd/track"
+)
+
+// Options are the run-time choices that are not part of the site file.
+type Options struct {
+	Pace capture.Pace
+	Log  *slog.Logger
+	// Start is the wall-clock time of frame 0 for sources without a
+	// start_time; zero means now.
+	Start time.Time
+	// StatusEvery logs a status line per source at this interval (0: never).
+	StatusEvery time.Duration
+	// ShutdownTimeout bounds draining after the sources stop.
+	ShutdownTimeout time.Duration
+	// Detector replaces the one the site file describes (tests, benchmarks).
+	Detector Detector
+}
+
+// Pipeline is one site's running daemon.
+type Pipeline struct {
+	cfg     *config.Config
+	opts    Options
+	log     *slog.Logger
+	det     Detector
+	pubs    []Publisher
+	drains  []func() error // publishers: flushed and closed when Run ends
+	closers []func() error // everything else, released by Close in reverse order
+	sources []*sourceRun
+
+	natsURL   string
+	published atomic.Int64
+	failed    atomic.Int64
+	mu        sync.Mutex // guards lastErr
+	lastErr   error
+}
+
+// sourceRun is everything owned for one source.
+type sourceRun struct {
+	id        string
+	info      capture.Info
+	worker    *capture.Worker
+	tracker   Tracker
+	engine    *events.Engine
+	scene     *scene.Scene // generated sources only, for the truth
+	lines     []events.LineRule
+	zones     []events.ZoneRule
+	processed atomic.Int64
+}
+
+// Build opens every source, the detector and the publishers. Problems with
+// the site's inputs (unreadable video, bad detections file) wrap
+// config.ErrInvalid; nothing keeps running when Build fails.
+func Build(cfg *config.Config, opts Options) (_ *Pipeline, err error) {
+	if opts.Log == nil {
+		opts.Log = slog.New(slog.DiscardHandler)
+	}
+	if opts.Pace == "" {
+		opts.Pace = capture.PaceRealtime
+	}
+	if opts.Start.IsZero() {
+		opts.Start = time.Now().UTC().Truncate(time.Millisecond)
+	}
+	if opts.ShutdownTimeout == 0 {
+		opts.ShutdownTimeout = 10 * time.Second
+	}
+	p := &Pipeline{cfg: cfg, opts: opts, log: opts.Log}
+	defer func() {
+		if err != nil {
+			p.release()
+		}
+	}()
+	for i, sc := range cfg.Sources {
+		sr, err := p.openSource(i, sc)
+		if err != nil {
+			return nil, err
+		}
+		p.sources = append(p.sources, sr)
+	}
+	if opts.Detector != nil {
+		p.det = opts.Detector
+	} else if p.det, err = buildDetector(cfg); err != nil {
+		return nil, err
+	}
+	p.closers = append(p.closers, p.det.Close)
+	for _, sr := range p.sources {
+		sr.tracker = track.NewIoU(track.IoUConfig{
+			MinIoU:    cfg.Tracker.IoU.MinIoU,
+			BirthHits: cfg.Tracker.IoU.BirthHits,
+			MaxMisses: cfg.Tracker.IoU.MaxMisses,
+			PerClass:  cfg.Tracker.IoU.PerClass,
+		})
+	}
+	if err := p.openOutputs(); err != nil {
+		return nil, err
+	}
+	return p, nil
+}
+
+func (p *Pipeline) openSource(i int, sc config.Source) (*sourceRun, error) {
+	path := fmt.Sprintf("sources[%d]", i)
+	var (
+		rd   capture.Reader
+		info capture.Info
+		sr   = &sourceRun{id: sc.ID}
+	)
+	switch sc.Kind() {
+	case "scene":
+		s, err := scene.New(config.SceneConfig(*sc.Scene))
+		if err != nil {
+			return nil, p.cfg.Errorf(path+".scene", "%v", err)
+		}
+		g := capture.NewGenerated(s)
+		rd, info, sr.scene = g, g.Info(), s
+	case "file":
+		v, err := capture.OpenVideo(p.cfg.Resolve(sc.File), p.cfg.Resolve(sc.File), false)
+		if err != nil {
+			return nil, p.cfg.Errorf(path+".file", "%v", err)
+		}
+		rd, info = v, v.Info()
+	default:
+		v, err := capture.OpenVideo(sc.URL, config.Redact(sc.URL), true)
+		if err != nil {
+			return nil, p.cfg.Errorf(path+".url", "%v", err)
+		}
+		rd, info = v, v.Info()
+	}
+	sr.info = info
+	sr.worker = capture.NewWorker(sc.ID, rd, info, p.opts.Pace, sc.FPS, p.log)
+	p.closers = append(p.closers, func() error { sr.worker.Out.Discard(); return rd.Close() })
+	start := p.opts.Start
+	if sc.StartTime != "" {
+		start, _ = time.Parse(time.RFC3339, sc.StartTime)
+	}
+	sr.lines, sr.zones = RulesFor(p.cfg, sc.ID, info.Width, info.Height)
+	sr.engine = events.NewEngine(events.Meta{Site: p.cfg.Site, Source: sc.ID, Start: start}, sr.lines, sr.zones)
+	return sr, nil
+}
+
+// ruleToPixels converts a rule from frame fractions to source pixels.
+func ruleToPixels(r config.Rule, w, h int) (*events.LineRule, *events.ZoneRule) {
+	pt := func(p [2]float64) events.Point { return events.Point{X: p[0] * float64(w), Y: p[1] * float64(h)} }
+	band := *r.Band * float64(h)
+	if r.Kind() == "line" {
+		return &events.LineRule{Name: r.Name, A: pt(r.Line[0]), B: pt(r.Line[1]), Classes: r.Classes,
+			Anchor: events.Anchor(r.Anchor), Band: band}, nil
+	}
+	poly := make([]events.Point, len(r.Zone))
+	for i, p := range r.Zone {
+		poly[i] = pt(p)
+	}
+	return nil, &events.ZoneRule{Name: r.Name, Polygon: poly, Classes: r.Classes, Anchor: events.Anchor(r.Anchor),
+		Band: band, DwellThreshold: r.Dwell.Duration}
+}
+
+// Run processes until every source has ended or ctx is cancelled, then
+// drains what was already captured, closes open zone stays and flushes the
+// publishers. It returns the first processing error.
+func (p *Pipeline) Run(ctx context.Context) error {
+	// Processing gets its own context: a stop signal ends capture first, and
+	// frames already captured are still processed and their events flushed.
+	procCtx, cancelProc := context.WithCancel(context.Background())
+	defer cancelProc()
+	var capWG, procWG sync.WaitGroup
+	errs := make(chan error, 2*len(p.sources))
+	for _, sr := range p.sources {
+		capWG.Add(1)
+		go func() {
+			defer capWG.Done()
+			if err := sr.worker.Run(ctx); err != nil {
+				p.log.Error("source failed", "source", sr.id, "err", err)
+				errs <- err
+			}
+		}()
+		procWG.Add(1)
+		go func() {
+			defer procWG.Done()
+			if err := p.process(procCtx, sr); err != nil {
+				errs <- err
+			}
+		}()
+	}
+	stopStatus := p.startStatus()
+	done := make(chan struct{})
+	go func() { capWG.Wait(); procWG.Wait(); close(done) }()
+	select {
+	case <-done:
+	case <-ctx.Done():
+		select {
+		case <-done:
+		case <-time.After(p.opts.ShutdownTimeout):
+			p.log.Error("shutdown deadline passed; stopping processing", "timeout", p.opts.ShutdownTimeout)
+			cancelProc()
+			<-done
+		}
+	}
+	stopStatus()
+	flushErr := p.drain()
+	close(errs)
+	for err := range errs {
+		return err
+	}
+	return flushErr
+}
+
+// process is one source's detect → track → rules → publish loop.
+func (p *Pipeline) process(ctx context.Context, sr *sourceRun) error {
+	var lastSeq int64
+	var lastPTS time.Duration
+	batch := make([]*capture.Frame, 1)
+	for {
+		f, err := sr.worker.Out.Get(ctx)
+		if errors.Is(err, mailbox.ErrClosed) {
+			break
+		}
+		if err != nil {
+			return nil // shutdown deadline: stop without finishing
+		}
+		batch[0] = f
+		dets, derr := p.det.Detect(ctx, batch)
+		f.Close()
+		if derr != nil {
+			return fmt.Errorf("source %s frame %d: detect: %w", sr.id, f.Seq, derr)
+		}
+		res := sr.tracker.Update(f.PTS, dets[0])
+		p.publish(ctx, sr.engine.Step(f.Seq, f.PTS, res))
+		sr.processed.Add(1)
+		lastSeq, lastPTS = f.Seq, f.PTS
+	}
+	p.publish(ctx, sr.engine.CloseAll(lastSeq, lastPTS, "stream_end"))
+	return nil
+}
+
+func (p *Pipeline) publish(ctx context.Context, evs []events.Event) {
+	for _, ev := range evs {
+		ok := true
+		for _, pub := range p.pubs {
+			if err := pub.Publish(ctx, ev); err != nil {
+				ok = false
+				p.failed.Add(1)
+				p.noteErr(fmt.Errorf("publish %s: %w", ev.ID, err))
+			}
+		}
+		if ok {
+			p.published.Add(1)
+		}
+	}
+}
+
+func (p *Pipeline) noteErr(err error) {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	if p.lastErr == nil {
+		p.log.Error("publishing failed", "err", err)
+	}
+	p.lastErr = err
+}
+
+// startStatus logs one line per source periodically; it returns a stop func.
+func (p *Pipeline) startStatus() func() {
+	if p.opts.StatusEvery <= 0 {
+		return func() {}
+	}
+	stop := make(chan struct{})
+	var wg sync.WaitGroup
+	wg.Add(1)
+	go func() {
+		defer wg.Done()
+		t := time.NewTicker(p.opts.StatusEvery)
+		defer t.Stop()
+		for {
+			select {
+			case <-stop:
+				return
+			case <-t.C:
+				for _, s := range p.Status() {
+					p.log.Info("status", "source", s.ID, "state", s.State, "read", s.Read, "processed", s.Processed,
+						"dropped_rate", s.DroppedRate, "dropped_mailbox", s.DroppedMailbox, "events", p.published.Load())
+				}
+			}
+		}
+	}()
+	return func() { close(stop); wg.Wait() }
+}
+
+// Status reports each source's health and counters.
+func (p *Pipeline) Status() []SourceStatus {
+	out := make([]SourceStatus, 0, len(p.sources))
+	for _, sr := range p.sources {
+		st := sr.worker.Stats()
+		out = append(out, SourceStatus{ID: sr.id, State: st.State, Err: st.Err, Read: st.Read,
+			Processed: sr.processed.Load(), DroppedRate: st.DroppedRate, DroppedMailbox: st.DroppedMailbox})
+	}
+	return out
+}
+
+// Summary totals frames, events and rule counts over all sources.
+func (p *Pipeline) Summary() Summary {
+	s := Summary{Rules: map[string]events.Totals{}, EventsPublished: p.published.Load()}
+	for _, sr := range p.sources {
+		st := sr.worker.Stats()
+		s.FramesRead += st.Read
+		s.FramesDropped += st.Dropped()
+		s.FramesProcessed += sr.processed.Load()
+		for name, t := range sr.engine.Totals() {
+			s.Rules[name] = t
+		}
+	}
+	return s
+}
+
+// Truth returns the true totals of the rules on generated sources (computed
+// from the scene's ground truth), or nil when no source is generated.
+func (p *Pipeline) Truth() map[string]events.Totals {
+	var out map[string]events.Totals
+	for _, sr := range p.sources {
+		if sr.scene == nil {
+			continue
+		}
+		if out == nil {
+			out = map[string]events.Totals{}
+		}
+		for name, t := range SceneTruth(sr.scene, sr.lines, sr.zones) {
+			out[name] = t
+		}
+	}
+	return out
+}
+
+// SceneTruth computes the true rule totals of a generated scene.
+func SceneTruth(s *scene.Scene, lines []events.LineRule, zones []events.ZoneRule) map[string]events.Totals {
+	frames := make([]events.TruthFrame, s.Frames())
+	for i := range frames {
+		objs := s.Truth(i)
+		tf := events.TruthFrame{TS: time.Duration(float64(i) / s.FPS() * float64(time.Second))}
+		for _, o := range objs {
+			tf.Objects = append(tf.Objects, events.TruthObject{ID: o.ID, Class: o.Class, Box: o.Box})
+		}
+		frames[i] = tf
+	}
+	return events.TruthTotals(lines, zones, frames)
+}
+
+// Sources lists the source IDs with the size of their frames.
+func (p *Pipeline) Sources() []SourceInfo {
+	out := make([]SourceInfo, len(p.sources))
+	for i, sr := range p.sources {
+		out[i] = SourceInfo{ID: sr.id, Info: sr.info, Lines: sr.lines, Zones: sr.zones, Scene: sr.scene}
+	}
+	return out
+}
+
+// SourceInfo describes an opened source.
+type SourceInfo struct {
+	ID    string
+	Info  capture.Info
+	Lines []events.LineRule
+	Zones []events.ZoneRule
+	Scene *scene.Scene
+}
+
+// drain flushes and closes the publishers, so nothing already counted is lost.
+func (p *Pipeline) drain() error {
+	first := runAll(p.drains)
+	p.drains = nil
+	return first
+}
+
+func runAll(fns []func() error) error {
+	var first error
+	for i := len(fns) - 1; i >= 0; i-- {
+		if err := fns[i](); err != nil && first == nil {
+			first = err
+		}
+	}
+	return first
+}
+
+// release frees everything Build opened when Build fails.
+func (p *Pipeline) release() { _ = p.Close() }
+
+// Close drains the publishers if Run did not, then stops the embedded server
+// and releases the detector and sources. Safe to call twice.
+func (p *Pipeline) Close() error {
+	err := p.drain()
+	if cerr := runAll(p.closers); err == nil {
+		err = cerr
+	}
+	p.closers = nil
+	return err
+}
+
+// RulesFor converts the rules of one source to pixels of its w x h frames.
+func RulesFor(cfg *config.Config, sourceID string, w, h int) ([]events.LineRule, []events.ZoneRule) {
+	var lines []events.LineRule
+	var zones []events.ZoneRule
+	for _, r := range cfg.Rules {
+		if r.Source != sourceID {
+			continue
+		}
+		l, z := ruleToPixels(r, w, h)
+		if l != nil {
+			lines = append(lines, *l)
+		} else {
+			zones = append(zones, *z)
+		}
+	}
+	return lines, zones
+}

@@ -1,0 +1,39 @@
+#!/usr/bin/env bash
+# make bench: micro-benchmarks and end-to-end replays, written to out/bench.txt
+# as tables a person can read.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+mkdir -p out bin
+go build -o bin/tallyd ./cmd/tallyd
+report=out/bench.txt
+{
+  echo "# tallyd benchmarks — $(date -u +%Y-%m-%dT%H:%MZ), $(nproc) cores, $(go version | cut -d' ' -f3)"
+  echo
+  echo "## Micro-benchmarks (go test -bench)"
+  echo
+  go test -run '^$' -bench . -benchmem ./track/... ./detect ./events/... ./capture/scene/... ./capture/mailbox/... 2>&1 \
+    | awk '/^Benchmark/ {printf "%-60s %s\n", $1, substr($0, index($0,$2))} /^(ok|FAIL)/ {print "  " $0}'
+  echo
+  echo "## End-to-end replay, pace max (decode -> detect -> track -> rules -> publish)"
+  echo
+  printf '%-34s %10s %10s %10s %12s\n' "input" "frames" "seconds" "frames/s" "peak RSS MiB"
+  run() {
+    local name=$1; shift
+    local t0 t1 out
+    t0=$(date +%s.%N)
+    out=$(/usr/bin/time -f '%M' ./bin/tallyd replay --summary json "$@" 2>/tmp/tallyd-bench-time) || { echo "$name: failed"; return; }
+    t1=$(date +%s.%N)
+    local frames rss
+    frames=$(echo "$out" | tail -n1 | sed -E 's/.*"frames_processed":([0-9]+).*/\1/')
+    rss=$(tail -n1 /tmp/tallyd-bench-time)
+    awk -v n="$name" -v f="$frames" -v a="$t0" -v b="$t1" -v r="$rss" \
+      'BEGIN {s=b-a; printf "%-34s %10d %10.2f %10.1f %12.0f\n", n, f, s, f/s, r/1024}'
+  }
+  run "generated demo scene (motion)" -c configs/demo.yaml
+  if [ -f ../shared/footage/vtest.avi ]; then
+    run "vtest.avi 768x576 (motion)" -c configs/footage.yaml
+  else
+    echo "vtest.avi: skipped (../shared/footage absent)"
+  fi
+} | tee "$report"
+echo "written to $report"

@@ -1,0 +1,63 @@
+// Package track links detections from successive frames of one source into
+// tracks with stable integer IDs.
+//
+// # IoU tracker
+//
+// IoU is the baseline tracker. It has no motion model: a track is where its
+// last matched detection was, and keeps that box while it is missed. Each
+// Update does the following.
+//
+//  1. Association. Every (track, detection) pair whose IoU is at least
+//     MinIoU is a candidate (with PerClass, only pairs of the same class).
+//     Candidates are taken greedily by descending IoU; a pair is kept when
+//     neither its track nor its detection is taken yet. Equal IoUs are
+//     ordered by track (confirmed tracks by ID first, then tentative ones
+//     by birth) and then by detection index, so the result depends only on
+//     the input.
+//  2. Matched tracks take the detection's box, score and time; Hits grows by
+//     one and Misses goes back to 0. Without PerClass a track's class is the
+//     one it was matched with most often (a tie keeps the current class).
+//  3. Birth. Each unmatched detection starts a tentative track with one hit.
+//     A tentative track must be matched in every following frame: a single
+//     miss removes it silently. After BirthHits consecutive matched frames
+//     (counting the first) it is confirmed and takes the next ID. With
+//     BirthHits 1 a detection is confirmed in the frame it appears.
+//  4. Death. A confirmed track that is not matched counts a miss; after more
+//     than MaxMisses consecutive misses it is removed and reported once in
+//     Result.Ended with its last matched box and time.
+//
+// IDs are taken only on confirmation, so they are dense (1, 2, 3, …) in
+// confirmation order (tracks confirmed in the same frame in birth order), never
+// reused, and stable for a track's life. Result.Active holds the confirmed
+// tracks matched in this frame; tracks being missed are not reported until
+// they are matched again or end. Misses are counted in Update calls, not in
+// time, so MaxMisses should follow the processing frame rate.
+package track
+
+import (
+	"time"
+
+	"tallyd/detect"
+)
+
+// Track is the state of one tracked object after a frame update.
+type Track struct {
+	ID        int64      // stable, unique within one tracker, starts at 1
+	Box       detect.Box // last matched box (or the predicted one while coasting)
+	Class     string
+	Score     float64
+	Hits      int           // frames with a matched detection since birth
+	Misses    int           // consecutive frames without a match
+	Confirmed bool          // reached the birth threshold; rules see only confirmed tracks
+	FirstSeen time.Duration // source timestamp of the first detection
+	LastSeen  time.Duration // source timestamp of the last matched detection
+}
+
+// Result is what one Update returns.
+type Result struct {
+	// Active holds confirmed tracks matched in this frame, ordered by ID.
+	Active []Track
+	// Ended holds confirmed tracks removed in this frame (too many misses),
+	// ordered by ID, so that rules can close what these tracks held open.
+	Ended []Track
+}
