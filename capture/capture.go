@@ -26,12 +26,26 @@ type Frame struct {
 	PTS      time.Duration // source timestamp from the start of the stream
 	Captured time.Time     // wall-clock time the frame was read
 	Mat      gocv.Mat      // 8-bit BGR
+	// Prep holds what a detector prepared from Mat on the capture goroutine
+	// (e.g. a letterboxed input tensor), so that preparing the next frame
+	// overlaps inference of this one. Nil when the detector prepares nothing.
+	Prep Prepared
 }
 
-// Close releases the frame's image; safe to call twice.
+// Prepared is detector input made ahead of time; Close releases it.
+type Prepared interface{ Close() error }
+
+// Close releases the frame's image and prepared input; safe to call twice.
 func (f *Frame) Close() {
-	if f != nil && f.Mat.Ptr() != nil {
+	if f == nil {
+		return
+	}
+	if f.Mat.Ptr() != nil {
 		_ = f.Mat.Close()
+	}
+	if f.Prep != nil {
+		_ = f.Prep.Close()
+		f.Prep = nil
 	}
 }
 

@@ -44,11 +44,12 @@ type Stats struct {
 	Read           int64  // frames decoded
 	DroppedRate    int64  // frames skipped to hold the target rate
 	DroppedMailbox int64  // frames replaced by a newer one before the consumer took them
+	DroppedPrep    int64  // frames whose detector input could not be prepared
 	LastFrame      time.Time
 }
 
 // Dropped is every frame that was read but not handed on.
-func (s Stats) Dropped() int64 { return s.DroppedRate + s.DroppedMailbox }
+func (s Stats) Dropped() int64 { return s.DroppedRate + s.DroppedMailbox + s.DroppedPrep }
 
 // Worker reads one source on its own goroutine and posts frames to Out.
 type Worker struct {
@@ -59,6 +60,12 @@ type Worker struct {
 	pace   Pace
 	target float64 // frames per second to hand on; 0 = all
 	log    *slog.Logger
+	// Prepare, when set before Run, is called on each frame that will be
+	// handed on (after rate dropping), on the worker's goroutine. An error
+	// drops the frame and is counted and logged.
+	Prepare func(*Frame) error
+
+	prepErrs atomic.Int64
 
 	read, dropRate atomic.Int64
 	lastFrame      atomic.Int64 // unix nanos
@@ -135,6 +142,15 @@ func (w *Worker) Run(ctx context.Context) (err error) {
 			}
 		}
 		f := &Frame{Source: w.ID, Seq: s, PTS: pts, Captured: now, Mat: m}
+		if w.Prepare != nil {
+			if perr := w.Prepare(f); perr != nil {
+				if w.prepErrs.Add(1) == 1 {
+					w.log.Error("preparing frame failed; frame dropped", "seq", s, "err", perr)
+				}
+				f.Close()
+				continue
+			}
+		}
 		if sleepToClock {
 			if d := time.Until(start.Add(pts)); d > 0 {
 				select {
@@ -176,6 +192,7 @@ func (w *Worker) Stats() Stats {
 	st.Read = w.read.Load()
 	st.DroppedRate = w.dropRate.Load()
 	st.DroppedMailbox = w.Out.Dropped()
+	st.DroppedPrep = w.prepErrs.Load()
 	if ns := w.lastFrame.Load(); ns != 0 {
 		st.LastFrame = time.Unix(0, ns)
 	}

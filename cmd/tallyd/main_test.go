@@ -10,8 +10,10 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
 
 	"tallyd/events"
+	"tallyd/events/bus"
 	"tallyd/internal/pipeline"
 )
 
@@ -262,4 +264,110 @@ func TestReplayFootage(t *testing.T) {
 		t.Errorf("frames read %d processed %d, want 795 each", s.FramesRead, s.FramesProcessed)
 	}
 	t.Logf("vtest.avi: %+v", s)
+}
+
+// TestListenSeesEveryEvent: `tallyd listen` on a separate NATS server prints
+// exactly the events a replay publishes there, one JSON line each.
+func TestListenSeesEveryEvent(t *testing.T) {
+	srv, err := bus.StartEmbedded("127.0.0.1", 0, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer srv.Shutdown()
+	dir := t.TempDir()
+	site := filepath.Join(dir, "site.yaml")
+	y := fmt.Sprintf(`site: ferry-terminal
+sources:
+  - id: walkway
+    scene: {seed: 4, duration: 60s, crossings: 10, visitors: 3}
+detector: {motion: {min_area: 200}}
+tracker: {iou: {min_iou: 0.2}}
+rules:
+  - {name: gate, source: walkway, line: [[0.15, 0.55], [0.85, 0.55]]}
+output: {nats: {url: "%s"}}
+log: {level: warn}
+`, srv.URL())
+	if err := os.WriteFile(site, []byte(y), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	// Replays are deterministic: a first run tells how many events to expect.
+	out, errOut, code := cli(t, "replay", "-c", site, "--summary", "json")
+	if code != 0 {
+		t.Fatalf("replay: %s", errOut)
+	}
+	want := lastJSON(t, out).EventsPublished
+	if want == 0 {
+		t.Fatal("the scene gave no events")
+	}
+	type result struct {
+		out, err string
+		code     int
+	}
+	done := make(chan result, 1)
+	go func() {
+		var out, errb bytes.Buffer
+		code := realMain(context.Background(), []string{"listen", "--url", srv.URL(), "--site", "ferry-terminal",
+			"--rule", "gate", "--timeout", "60s", "--count", fmt.Sprint(want)}, &out, &errb)
+		done <- result{out.String(), errb.String(), code}
+	}()
+	deadline := time.Now().Add(10 * time.Second)
+	for srv.Subscriptions() == 0 {
+		if time.Now().After(deadline) {
+			t.Fatal("listen did not subscribe")
+		}
+		time.Sleep(10 * time.Millisecond)
+	}
+	out, errOut, code = cli(t, "replay", "-c", site, "--summary", "json")
+	if code != 0 || lastJSON(t, out).EventsPublished != want {
+		t.Fatalf("second replay: exit %d, %s", code, errOut)
+	}
+	r := <-done // listen exits by itself after --count events (or its 60 s timeout)
+	var got []string
+	for _, l := range strings.Split(strings.TrimSpace(r.out), "\n") {
+		if l != "" {
+			got = append(got, l)
+		}
+	}
+	if r.code != 0 || int64(len(got)) != want {
+		t.Fatalf("listen exit %d printed %d events, replay published %d; stderr: %s", r.code, len(got), want, r.err)
+	}
+	for _, l := range got {
+		ev, err := events.Parse([]byte(l))
+		if err != nil || ev.Data.Rule != "gate" {
+			t.Errorf("bad line %q: %v", l, err)
+		}
+	}
+}
+
+// TestRunStopsOnSignal: the daemon runs until its context is cancelled (what
+// SIGINT/SIGTERM do), then drains, flushes, logs its totals and exits 0.
+func TestRunStopsOnSignal(t *testing.T) {
+	dir := t.TempDir()
+	site := sceneSite(t, dir, 1, "  kind: motion")
+	y := strings.Replace(string(mustRead(t, site)), "log: {level: warn}", "  jsonl: events.jsonl\nlog: {level: info}", 1)
+	if err := os.WriteFile(site, []byte(y), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithTimeout(context.Background(), 1500*time.Millisecond)
+	defer cancel()
+	var out, errb bytes.Buffer
+	code := realMain(ctx, []string{"run", "-c", site, "--status-every", "500ms"}, &out, &errb)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errb.String())
+	}
+	if !strings.Contains(errb.String(), "msg=stopped") {
+		t.Errorf("no closing totals in the log:\n%s", errb.String())
+	}
+	if _, err := os.Stat(filepath.Join(dir, "events.jsonl")); err != nil {
+		t.Errorf("events file not written: %v", err)
+	}
+}
+
+func mustRead(t *testing.T, p string) []byte {
+	t.Helper()
+	b, err := os.ReadFile(p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return b
 }

@@ -148,3 +148,7 @@ func (l *serverLog) Fatalf(format string, v ...any) {
 	default:
 	}
 }
+
+// Subscriptions is the number of client subscriptions the server holds; tests
+// and health checks use it to know a listener is ready.
+func (e *Embedded) Subscriptions() uint32 { return e.srv.NumSubscriptions() }

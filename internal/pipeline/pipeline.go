@@ -98,6 +98,11 @@ func Build(cfg *config.Config, opts Options) (_ *Pipeline, err error) {
 		return nil, err
 	}
 	p.closers = append(p.closers, p.det.Close)
+	if pr, ok := p.det.(Preparer); ok {
+		for _, sr := range p.sources {
+			sr.worker.Prepare = pr.Prepare
+		}
+	}
 	for _, sr := range p.sources {
 		sr.tracker = track.NewIoU(track.IoUConfig{
 			MinIoU:    cfg.Tracker.IoU.MinIoU,

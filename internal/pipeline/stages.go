@@ -21,6 +21,13 @@ type Detector interface {
 	Close() error
 }
 
+// Preparer is a detector that can prepare its input from a frame ahead of
+// time, on the source's capture goroutine, so that preparation overlaps
+// inference. It sets f.Prep.
+type Preparer interface {
+	Prepare(f *capture.Frame) error
+}
+
 // Tracker links one source's detections over time.
 type Tracker interface {
 	Update(ts time.Duration, dets []detect.Detection) track.Result
