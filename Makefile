@@ -1,7 +1,7 @@
 # tallyd: see README.md for what each target does.
 GO       ?= go
 BIN      := bin/tallyd
-PURE_PKGS := ./capture/mailbox/... ./capture/scene/... ./detect ./track/... ./events/... ./internal/config/... ./internal/motfmt/...
+PURE_PKGS := ./capture/mailbox/... ./capture/scene/... ./capture/testsrv/... ./detect ./track/... ./events/... ./internal/config/... ./internal/motfmt/...
 
 .PHONY: setup build demo test bench race clean
 
@@ -20,7 +20,7 @@ test: setup
 	$(GO) vet ./...
 	$(GO) test -race $(PURE_PKGS)
 	$(GO) test -timeout 40m ./...
-	$(GO) test -tags matprofile -run TestNoMatLeak -count=1 ./internal/pipeline/
+	$(GO) test -tags matprofile -run TestNoMatLeak -count=1 ./capture/ ./internal/pipeline/
 
 bench: setup
 	@bash scripts/bench.sh

@@ -5,6 +5,7 @@ go 1.26.8
 require (
 	github.com/nats-io/nats-server/v2 v2.15.2
 	github.com/nats-io/nats.go v1.55.0
+	github.com/yalue/onnxruntime_go v1.27.0
 	gocv.io/x/gocv v0.31.0
 	gopkg.in/yaml.v3 v3.0.1
 )

@@ -26,6 +26,10 @@ type Frame struct {
 	PTS      time.Duration // source timestamp from the start of the stream
 	Captured time.Time     // wall-clock time the frame was read
 	Mat      gocv.Mat      // 8-bit BGR
+	// Conn numbers the connection of a live source the frame came on: 1 for
+	// the first, +1 after each reconnect (0 for other sources). A change
+	// means the source was lost in between (see Worker.OnLost).
+	Conn int64
 	// Prep holds what a detector prepared from Mat on the capture goroutine
 	// (e.g. a letterboxed input tensor), so that preparing the next frame
 	// overlaps inference of this one. Nil when the detector prepares nothing.

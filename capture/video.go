@@ -8,42 +8,62 @@ import (
 	"gocv.io/x/gocv"
 )
 
-// Video reads a recorded file or a stream URL through OpenCV's video I/O
-// (FFmpeg backend): whatever container and codec that build reads.
+// Video reads a recorded file, a stream URL or a local camera through
+// OpenCV's video I/O: whatever container and codec that build reads.
 type Video struct {
-	name  string // for errors; passwords already redacted
-	vc    *gocv.VideoCapture
-	info  Info
-	first gocv.Mat // frame read while probing, handed out by the first Read
-	seq   int64
-	last  time.Duration
+	name        string // for errors; passwords already redacted
+	cap         *cvCapture
+	info        Info
+	first       gocv.Mat // frame read while probing, handed out by the first Read
+	seq         int64
+	last        time.Duration
+	readTimeout time.Duration // live sources: a read this long without a frame is a stall
 }
 
-// OpenVideo opens a file (live=false) or a stream URL (live=true) and reads
-// its first frame, so that a file OpenCV cannot decode fails here, before
-// anything starts. name is used in errors.
+// OpenVideo opens a file (live=false) or a stream URL (live=true) through the
+// FFmpeg backend and reads its first frame, so that a file OpenCV cannot
+// decode fails here, before anything starts. name is used in errors. Streams
+// get the default open and read timeouts; Open takes them from a SourceSpec.
 func OpenVideo(uri, name string, live bool) (*Video, error) {
-	vc, err := gocv.OpenVideoCaptureWithAPI(uri, gocv.VideoCaptureFFmpeg)
-	if err != nil || !vc.IsOpened() {
-		if vc != nil {
-			_ = vc.Close()
-		}
-		return nil, fmt.Errorf("open %s: not a video OpenCV can read", name)
+	var openTO, readTO time.Duration
+	if live {
+		openTO, readTO = DefaultOpenTimeout, DefaultReadTimeout
 	}
-	v := &Video{name: name, vc: vc, first: gocv.NewMat()}
-	if !vc.Read(&v.first) || v.first.Empty() {
+	v, err := openVideo(func() (*cvCapture, bool) {
+		var c *cvCapture
+		var ok bool
+		ffmpegEnv.with("", func() { c, ok = openCVName(uri, apiFFmpeg, openTO, readTO) })
+		return c, ok
+	}, live, readTO)
+	if err != nil {
+		return nil, fmt.Errorf("open %s: %w", name, err)
+	}
+	v.name = name
+	return v, nil
+}
+
+// openVideo probes a capture opened by open: it reads the first frame and
+// checks that frames are 8-bit BGR. Errors say what is wrong, without a name.
+func openVideo(open func() (*cvCapture, bool), live bool, readTimeout time.Duration) (*Video, error) {
+	c, ok := open()
+	if !ok {
+		return nil, errNotReadable
+	}
+	v := &Video{cap: c, first: gocv.NewMat(), readTimeout: readTimeout}
+	if !c.read(&v.first) || v.first.Empty() {
 		_ = v.Close()
-		return nil, fmt.Errorf("open %s: no frame could be decoded", name)
+		return nil, errNoFrame
 	}
 	if v.first.Type() != gocv.MatTypeCV8UC3 {
+		t := v.first.Type()
 		_ = v.Close()
-		return nil, fmt.Errorf("open %s: frames are of type %v, want 8-bit BGR", name, v.first.Type())
+		return nil, reasonf(ErrUnsupported, "frames are of type %v, want 8-bit BGR", t)
 	}
-	fps := vc.Get(gocv.VideoCaptureFPS)
+	fps := c.get(gocv.VideoCaptureFPS)
 	if math.IsNaN(fps) || fps <= 0 || fps > 1000 {
 		fps = 0
 	}
-	n := int(vc.Get(gocv.VideoCaptureFrameCount))
+	n := int(c.get(gocv.VideoCaptureFrameCount))
 	if live || n < 0 {
 		n = 0
 	}
@@ -56,15 +76,24 @@ func (v *Video) Info() Info { return v.info }
 
 // Read implements Reader.
 func (v *Video) Read(dst *gocv.Mat) (time.Duration, error) {
+	if v.cap == nil {
+		return 0, fmt.Errorf("read %s: %w", v.name, errReaderClosed)
+	}
 	if v.first.Ptr() != nil {
 		v.first.CopyTo(dst)
 		_ = v.first.Close()
 		v.first = gocv.Mat{}
-	} else if !v.vc.Read(dst) || dst.Empty() {
-		if v.info.Live {
-			return 0, fmt.Errorf("read %s: %w", v.name, ErrDisconnected)
+	} else {
+		start := time.Now()
+		if !v.cap.read(dst) || dst.Empty() {
+			if !v.info.Live {
+				return 0, fmt.Errorf("read %s: %w", v.name, ErrEndOfStream)
+			}
+			if v.readTimeout > 0 && time.Since(start) >= v.readTimeout*9/10 {
+				return 0, fmt.Errorf("read %s: no frame within read_timeout %v (stalled): %w", v.name, v.readTimeout, ErrDisconnected)
+			}
+			return 0, fmt.Errorf("read %s: stream ended or broke off: %w", v.name, ErrDisconnected)
 		}
-		return 0, fmt.Errorf("read %s: %w", v.name, ErrEndOfStream)
 	}
 	pts := v.timestamp()
 	v.seq++
@@ -78,7 +107,11 @@ func (v *Video) timestamp() time.Duration {
 	if v.info.FPS > 0 && !v.info.Live {
 		pts = time.Duration(float64(v.seq) / v.info.FPS * float64(time.Second))
 	} else {
-		pts = time.Duration(v.vc.Get(gocv.VideoCapturePosMsec) * float64(time.Millisecond))
+		ms := v.cap.get(gocv.VideoCapturePosMsec)
+		if !(ms >= 0 && ms < 1e12) { // some streams (HTTP MJPEG) have no clock
+			ms = 0
+		}
+		pts = time.Duration(ms * float64(time.Millisecond))
 		if v.seq > 0 && pts <= v.last {
 			pts = v.last + time.Millisecond
 		}
@@ -93,10 +126,9 @@ func (v *Video) Close() error {
 		_ = v.first.Close()
 		v.first = gocv.Mat{}
 	}
-	if v.vc != nil {
-		err := v.vc.Close()
-		v.vc = nil
-		return err
+	if v.cap != nil {
+		v.cap.close()
+		v.cap = nil
 	}
 	return nil
 }

@@ -38,14 +38,27 @@ func ParsePace(s string) (Pace, error) {
 
 // Stats is a worker's health and counters.
 type Stats struct {
-	Source         string
-	State          string // "running", "ended", "failed", "stopped"
-	Err            string // last error when failed
-	Read           int64  // frames decoded
-	DroppedRate    int64  // frames skipped to hold the target rate
-	DroppedMailbox int64  // frames replaced by a newer one before the consumer took them
-	DroppedPrep    int64  // frames whose detector input could not be prepared
+	Source string
+	// State is "running", "ended", "failed" or "stopped"; while a live
+	// source read through a LiveReader runs, its link state instead:
+	// "connecting", "up", "backing_off" (or "failed").
+	State string
+	Err   string // last error when failed; why a live source is not up
+	// Link is a live source's connection state (zero for other sources).
+	Link           Link
+	Read           int64 // frames decoded
+	DroppedRate    int64 // frames skipped to hold the target rate
+	DroppedMailbox int64 // frames replaced by a newer one before the consumer took them
+	DroppedPrep    int64 // frames whose detector input could not be prepared
 	LastFrame      time.Time
+}
+
+// Lost tells the pipeline that a live source's connection ended.
+type Lost struct {
+	Source  string
+	Conn    int64 // the connection that ended; its frames carried Frame.Conn == Conn
+	LastSeq int64 // Seq of the last frame read on it; -1 when none was
+	Err     error // why, password hidden
 }
 
 // Dropped is every frame that was read but not handed on.
@@ -64,6 +77,11 @@ type Worker struct {
 	// handed on (after rate dropping), on the worker's goroutine. An error
 	// drops the frame and is counted and logged.
 	Prepare func(*Frame) error
+	// OnLost, when set before Run, is called on the worker's goroutine each
+	// time a live source (a LiveReader) loses its connection: after the last
+	// frame of that connection was handed on, before any frame of the next.
+	// It must not block. Tracks and zone stays of the source should be closed.
+	OnLost func(Lost)
 
 	prepErrs atomic.Int64
 
@@ -113,13 +131,32 @@ func (w *Worker) Run(ctx context.Context) (err error) {
 		period = time.Duration(float64(time.Second) / w.target)
 	}
 	sleepToClock := w.pace == PaceRealtime && !w.info.Live
+	live, _ := w.src.(LiveReader)
+	lastSeq := int64(-1) // of the current connection
 	for ctx.Err() == nil {
 		m := gocv.NewMat()
-		pts, rerr := w.src.Read(&m)
+		var (
+			pts  time.Duration
+			rerr error
+			conn int64
+		)
+		if live != nil {
+			pts, rerr = live.ReadContext(ctx, &m)
+			conn = live.Link().Conn
+		} else {
+			pts, rerr = w.src.Read(&m)
+		}
 		if rerr != nil {
 			_ = m.Close()
-			if errors.Is(rerr, ErrEndOfStream) {
+			switch {
+			case errors.Is(rerr, ErrEndOfStream):
 				return nil
+			case live != nil && errors.Is(rerr, ErrDisconnected):
+				if w.OnLost != nil {
+					w.OnLost(Lost{Source: w.ID, Conn: conn, LastSeq: lastSeq, Err: rerr})
+				}
+				lastSeq = -1
+				continue
 			}
 			return rerr
 		}
@@ -128,6 +165,7 @@ func (w *Worker) Run(ctx context.Context) (err error) {
 		w.lastFrame.Store(now.UnixNano())
 		s := seq
 		seq++
+		lastSeq = s
 		if period > 0 {
 			// Hold the target rate on the source clock; a tenth of a period
 			// of slack absorbs timestamp jitter.
@@ -141,7 +179,7 @@ func (w *Worker) Run(ctx context.Context) (err error) {
 				nextDue = pts + period
 			}
 		}
-		f := &Frame{Source: w.ID, Seq: s, PTS: pts, Captured: now, Mat: m}
+		f := &Frame{Source: w.ID, Seq: s, PTS: pts, Captured: now, Mat: m, Conn: conn}
 		if w.Prepare != nil {
 			if perr := w.Prepare(f); perr != nil {
 				if w.prepErrs.Add(1) == 1 {
@@ -189,6 +227,12 @@ func (w *Worker) Stats() Stats {
 	w.mu.Lock()
 	st := Stats{Source: w.ID, State: w.state, Err: w.err}
 	w.mu.Unlock()
+	if live, ok := w.src.(LiveReader); ok {
+		st.Link = live.Link()
+		if st.State == "running" {
+			st.State, st.Err = string(st.Link.State), st.Link.Reason
+		}
+	}
 	st.Read = w.read.Load()
 	st.DroppedRate = w.dropRate.Load()
 	st.DroppedMailbox = w.Out.Dropped()

@@ -80,6 +80,9 @@ type Data struct {
 	Occupancy  *int       `json:"occupancy,omitempty"`   // enter and exit: tracks inside after the frame
 	Reason     string     `json:"reason,omitempty"`      // exit: why the stay was closed, if not by leaving
 	ThresholdS *float64   `json:"threshold_s,omitempty"` // dwell: the rule's threshold
+	// FrameAgeMS is how old the frame behind the event was when the event was
+	// published (capture to publish), in milliseconds. Not part of the id.
+	FrameAgeMS *float64 `json:"frame_age_ms,omitempty"`
 }
 
 // EventSource is the CloudEvents source attribute for a site and a source.

@@ -37,3 +37,9 @@ report=out/bench.txt
   fi
 } | tee "$report"
 echo "written to $report"
+
+# ---------------------------------------------------------------------------
+# ONNX detectors (detect/onnx): inference alone per engine, pre/post-processing,
+# end-to-end replay and per-stage time, appended to the same report.
+echo
+bash scripts/bench_onnx.sh | tee -a "$report"

@@ -1,5 +1,7 @@
 // Package track links detections from successive frames of one source into
-// tracks with stable integer IDs.
+// tracks with stable integer IDs. Two trackers share the Track and Result
+// types and the same methods: IoU, the baseline described below, and
+// ByteTrack, with a motion model and two-stage association (see its type).
 //
 // # IoU tracker
 //
@@ -51,6 +53,10 @@ type Track struct {
 	Confirmed bool          // reached the birth threshold; rules see only confirmed tracks
 	FirstSeen time.Duration // source timestamp of the first detection
 	LastSeen  time.Duration // source timestamp of the last matched detection
+	// Estimate is the motion model's box at the time of the update that
+	// reported the track: filtered for a matched track, predicted for a
+	// missed one. Zero for trackers without a motion model (IoU).
+	Estimate detect.Box
 }
 
 // Result is what one Update returns.
@@ -60,4 +66,9 @@ type Result struct {
 	// Ended holds confirmed tracks removed in this frame (too many misses),
 	// ordered by ID, so that rules can close what these tracks held open.
 	Ended []Track
+	// Lost holds confirmed tracks not matched in this frame but still kept,
+	// ordered by ID, with the motion model's prediction in Estimate: what a
+	// display draws, or what a track file holds through a short gap. The
+	// IoU tracker, which has no prediction, leaves it nil.
+	Lost []Track
 }

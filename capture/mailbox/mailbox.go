@@ -26,6 +26,8 @@ type Mailbox[T any] struct {
 	// can select on it together with their context.
 	changed chan struct{}
 
+	notify chan<- struct{} // optional: poked (without blocking) when an item arrives or the box closes
+
 	dropped atomic.Int64
 }
 
@@ -38,6 +40,28 @@ func New[T any](release func(T)) *Mailbox[T] {
 func (m *Mailbox[T]) signalLocked() {
 	close(m.changed)
 	m.changed = make(chan struct{})
+	if m.notify != nil && (m.full || m.closed) {
+		select {
+		case m.notify <- struct{}{}:
+		default:
+		}
+	}
+}
+
+// Notify makes the mailbox poke ch, without blocking, whenever an item arrives
+// or the mailbox closes, so one consumer can wait on many mailboxes. Call it
+// before the producer starts.
+func (m *Mailbox[T]) Notify(ch chan<- struct{}) {
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	m.notify = ch
+}
+
+// Done reports whether the mailbox is closed and empty: nothing more will come.
+func (m *Mailbox[T]) Done() bool {
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	return m.closed && !m.full
 }
 
 // Put stores v, evicting (releasing and counting) an item still waiting. It

@@ -123,3 +123,36 @@ func TestConcurrentAccounting(t *testing.T) {
 		t.Fatalf("released %d, dropped %d", released.Load(), m.Dropped())
 	}
 }
+
+func TestNotifyAndDone(t *testing.T) {
+	ch := make(chan struct{}, 1)
+	a, b := New[int](nil), New[int](nil)
+	a.Notify(ch)
+	b.Notify(ch)
+	b.Put(1)
+	select {
+	case <-ch:
+	default:
+		t.Fatal("no poke after Put")
+	}
+	if v, ok := b.TryGet(); !ok || v != 1 {
+		t.Fatal("TryGet")
+	}
+	select {
+	case <-ch:
+		t.Fatal("poke after a Get: consumers are poked for arrivals only")
+	default:
+	}
+	if a.Done() {
+		t.Fatal("open mailbox reported done")
+	}
+	a.Put(2)
+	a.Close()
+	if a.Done() {
+		t.Fatal("closed mailbox with an item reported done")
+	}
+	a.TryGet()
+	if !a.Done() {
+		t.Fatal("closed empty mailbox not done")
+	}
+}

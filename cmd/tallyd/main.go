@@ -6,6 +6,8 @@
 //	tallyd check -c site.yaml      dry run: check the file, open every source
 //	tallyd synth -c site.yaml ...  write a generated scene as video + ground truth
 //	tallyd listen                  print events from NATS
+//	tallyd track ...               the tracker alone over a detections file
+//	tallyd score ...               tracking metrics against ground truth
 package main
 
 import (
@@ -40,6 +42,8 @@ var commands = []command{
 	{"check", "check a site file and open every source without starting anything", cmdCheck},
 	{"synth", "write a generated scene as a video file with its ground truth", cmdSynth},
 	{"listen", "subscribe to tallyd events on NATS and print them", cmdListen},
+	{"track", "run the tracker alone over a detections file (MOTChallenge text format)", cmdTrack},
+	{"score", "score tracks against ground truth: CLEAR MOT, IDF1, HOTA", cmdScore},
 }
 
 func main() {

@@ -27,6 +27,11 @@ func cli(t *testing.T, args ...string) (string, string, int) {
 
 // sceneSite writes a site file for a generated scene with the demo's rules.
 func sceneSite(t *testing.T, dir string, seed int, detector string) string {
+	return sceneSiteWith(t, dir, seed, detector, "bytetrack")
+}
+
+// sceneSiteWith is sceneSite with a chosen tracker.
+func sceneSiteWith(t *testing.T, dir string, seed int, detector, trackerKind string) string {
 	t.Helper()
 	y := fmt.Sprintf(`site: ferry-terminal
 sources:
@@ -36,7 +41,7 @@ sources:
 detector:
 %s
 tracker:
-  iou: {min_iou: 0.2}
+  kind: %s
 rules:
   - name: boarding-gate
     source: walkway
@@ -51,7 +56,7 @@ output:
   nats:
     embedded: {port: 0}
 log: {level: warn}
-`, seed, detector)
+`, seed, detector, trackerKind)
 	p := filepath.Join(dir, fmt.Sprintf("site-%d.yaml", seed))
 	if err := os.WriteFile(p, []byte(y), 0o644); err != nil {
 		t.Fatal(err)
@@ -281,7 +286,6 @@ sources:
   - id: walkway
     scene: {seed: 4, duration: 60s, crossings: 10, visitors: 3}
 detector: {motion: {min_area: 200}}
-tracker: {iou: {min_iou: 0.2}}
 rules:
   - {name: gate, source: walkway, line: [[0.15, 0.55], [0.85, 0.55]]}
 output: {nats: {url: "%s"}}
@@ -370,4 +374,107 @@ func mustRead(t *testing.T, p string) []byte {
 		t.Fatal(err)
 	}
 	return b
+}
+
+// TestTrackAndScore: the tracker alone over a detections file, then scored
+// against the truth. With the scene's own truth boxes as detections the
+// tracks must match the truth almost perfectly.
+func TestTrackAndScore(t *testing.T) {
+	dir := t.TempDir()
+	site := sceneSite(t, dir, 2, "  kind: motion")
+	gt := filepath.Join(dir, "gt.txt")
+	if _, e, code := cli(t, "synth", "-c", site, "--video", filepath.Join(dir, "v.avi"), "--truth", filepath.Join(dir, "t.json"), "--gt", gt); code != 0 {
+		t.Fatalf("synth: %s", e)
+	}
+	tracks := filepath.Join(dir, "tracks.txt")
+	out, e, code := cli(t, "track", "--detections", gt, "--out", tracks, "--fps", "10")
+	if code != 0 {
+		t.Fatalf("track exit %d: %s", code, e)
+	}
+	t.Log(strings.TrimSpace(out))
+	out, e, code = cli(t, "score", "--truth", gt, "--tracks", tracks, "--json")
+	if code != 0 {
+		t.Fatalf("score exit %d: %s", code, e)
+	}
+	var m map[string]float64
+	if err := json.Unmarshal([]byte(strings.TrimSpace(out)), &m); err != nil {
+		// alphas is an array; decode the scalar keys only.
+		var raw map[string]json.RawMessage
+		if err2 := json.Unmarshal([]byte(strings.TrimSpace(out)), &raw); err2 != nil {
+			t.Fatal(err2)
+		}
+		m = map[string]float64{}
+		for k, v := range raw {
+			var f float64
+			if json.Unmarshal(v, &f) == nil {
+				m[k] = f
+			}
+		}
+	}
+	for _, k := range []string{"mota", "motp", "idf1", "idp", "idr", "hota", "deta", "assa", "num_false_positives",
+		"num_misses", "num_switches", "num_fragmentations", "mostly_tracked", "partially_tracked", "mostly_lost"} {
+		if _, ok := m[k]; !ok {
+			t.Errorf("score --json lacks %q", k)
+		}
+	}
+	// Birth takes two frames, so each identity's first frame is missed, and a
+	// track is drawn at its prediction for 300 ms after its object leaves the
+	// frame; identities themselves must not switch.
+	if m["idf1"] < 0.95 || m["num_switches"] != 0 || m["motp"] < 0.99 {
+		t.Errorf("tracking the truth itself scored idf1 %.3f, switches %v, motp %.3f", m["idf1"], m["num_switches"], m["motp"])
+	}
+}
+
+// TestScoreReference: `tallyd score` on the TUD-Campus reference pair gives
+// the values the py-motmetrics test suite asserts (motmetrics/tests/
+// test_metrics.py, test_motchallenge_files; see ../shared/reference/mot/
+// README.md §4a), with MOTP as mean IoU (1 - 0.277201).
+func TestScoreReference(t *testing.T) {
+	ref := "../../../shared/reference/mot/TUD-Campus/"
+	if _, err := os.Stat(ref + "gt.txt"); err != nil {
+		t.Skipf("shared MOT reference data absent (%v)", err)
+	}
+	out, e, code := cli(t, "score", "--truth", ref+"gt.txt", "--tracks", ref+"test.txt", "--json")
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, e)
+	}
+	var m struct {
+		MOTA, MOTP, IDF1, IDP, IDR float64
+		FP                         int `json:"num_false_positives"`
+		FN                         int `json:"num_misses"`
+		IDSW                       int `json:"num_switches"`
+		Frag                       int `json:"num_fragmentations"`
+		MT                         int `json:"mostly_tracked"`
+		PT                         int `json:"partially_tracked"`
+		ML                         int `json:"mostly_lost"`
+	}
+	if err := json.Unmarshal([]byte(out), &m); err != nil {
+		t.Fatal(err)
+	}
+	near := func(name string, got, want float64) {
+		if math.Abs(got-want) > 1e-3 {
+			t.Errorf("%s = %.6f, want %.6f", name, got, want)
+		}
+	}
+	near("mota", m.MOTA, 0.526462)
+	near("motp", m.MOTP, 1-0.277201)
+	near("idf1", m.IDF1, 0.557659)
+	near("idp", m.IDP, 0.729730)
+	near("idr", m.IDR, 0.451253)
+	if m.FP != 13 || m.FN != 150 || m.IDSW != 7 || m.Frag != 7 || m.MT != 1 || m.PT != 6 || m.ML != 1 {
+		t.Errorf("counts %+v, want FP 13 FN 150 IDSW 7 Frag 7 MT 1 PT 6 ML 1", m)
+	}
+}
+
+// TestBadMOTFile: a malformed MOTChallenge file is bad input naming the line.
+func TestBadMOTFile(t *testing.T) {
+	dir := t.TempDir()
+	bad := filepath.Join(dir, "det.txt")
+	if err := os.WriteFile(bad, []byte("1,-1,10,20,30,40,0.9,-1,-1,-1\n2,-1,10,twenty,30,40,0.9,-1,-1,-1\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	_, e, code := cli(t, "track", "--detections", bad, "--out", filepath.Join(dir, "o.txt"))
+	if code != exitBadInput || !strings.Contains(e, bad+":2:") {
+		t.Errorf("exit %d, stderr %q; want exit 2 naming %s:2", code, e, bad)
+	}
 }

@@ -40,10 +40,11 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 }
 
 func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	fs := newFlags("replay", "replay -c FILE [--pace max|realtime] [--summary table|json]", stdout)
+	fs := newFlags("replay", "replay -c FILE [--pace max|realtime] [--summary table|json] [--tracks OUT.txt]", stdout)
 	cfgPath := fs.String("c", "", "site file (YAML)")
 	paceName := fs.String("pace", "max", "max: every frame as fast as the CPU allows; realtime: source clock, drop when behind")
 	format := fs.String("summary", "table", "table: counts beside the truth when known; json: one JSON line last")
+	tracksOut := fs.String("tracks", "", "also write tracks in the MOTChallenge text format to this file (-<source> added with several sources)")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -59,7 +60,7 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		return err
 	}
 	log := newLogger(cfg, stderr)
-	p, err := pipeline.Build(cfg, pipeline.Options{Pace: pace, Log: log})
+	p, err := pipeline.Build(cfg, pipeline.Options{Pace: pace, Log: log, TracksOut: *tracksOut})
 	if err != nil {
 		return err
 	}

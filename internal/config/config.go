@@ -29,13 +29,23 @@ type Config struct {
 	lines lineIndex
 }
 
-// Source is one camera stream, recorded file or generated scene. Exactly one
-// of File, URL and Scene is set.
+// Source is one camera stream, local camera, recorded file, image folder or
+// generated scene. Exactly one of File, URL, Device, Folder and Scene is set.
 type Source struct {
-	ID    string `yaml:"id"`
-	File  string `yaml:"file"`  // recorded video, relative to the config file's folder
-	URL   string `yaml:"url"`   // stream URL read through OpenCV's FFmpeg backend
-	Scene *Scene `yaml:"scene"` // generated ferry-terminal scene with known truth
+	ID     string `yaml:"id"`
+	File   string `yaml:"file"`   // recorded video, relative to the config file's folder
+	URL    string `yaml:"url"`    // stream URL (rtsp, rtsps, http, https) read through OpenCV's FFmpeg backend
+	Device string `yaml:"device"` // local camera: an index such as 0 or a path such as /dev/video0
+	Folder string `yaml:"folder"` // image folder (jpg, png, bmp in name order), relative to the config file's folder
+	Scene  *Scene `yaml:"scene"`  // generated ferry-terminal scene with known truth
+	// FolderFPS is the frame rate given to a folder's images (0: DefaultFolderFPS).
+	FolderFPS float64 `yaml:"folder_fps"`
+	// Stream settings, for url sources only; zero durations take the defaults.
+	Transport   string   `yaml:"transport"`    // RTSP media transport: tcp (default) or udp
+	Username    string   `yaml:"username"`     // merged into the URL when the stream is opened
+	Password    Secret   `yaml:"password"`     // merged into the URL when opened; never printed
+	OpenTimeout Duration `yaml:"open_timeout"` // connecting and reading the first frame
+	ReadTimeout Duration `yaml:"read_timeout"` // longest wait for a frame before reconnecting
 	// FPS is the target processing rate; frames beyond it are dropped on
 	// purpose (counted). 0 processes every frame the source delivers.
 	FPS float64 `yaml:"fps"`
@@ -43,6 +53,23 @@ type Source struct {
 	// event times of recorded and generated sources. Empty means the time the
 	// run started. RFC 3339.
 	StartTime string `yaml:"start_time"`
+	// MaxAge drops a frame that waited longer than this for the detector
+	// (counted as too old). 0 never drops for age.
+	MaxAge Duration `yaml:"max_age"`
+	// Gate runs the detector only on frames with motion.
+	Gate *Gate `yaml:"gate"`
+}
+
+// Gate configures motion gating: a cheap frame difference decides whether a
+// frame is worth the detector.
+type Gate struct {
+	// Where looks for change "anywhere" in the frame or only in the
+	// "rules" regions (zones, and a band around each line) of this source.
+	Where string `yaml:"where"`
+	// Threshold is the fraction of (downscaled) pixels that must change.
+	Threshold float64 `yaml:"threshold"`
+	// Hold keeps detecting this long after the last change.
+	Hold Duration `yaml:"hold"`
 }
 
 // Scene configures a generated scene source.
@@ -59,14 +86,16 @@ type Scene struct {
 
 // Detector selects and configures the detector shared by all sources.
 type Detector struct {
-	// Kind is "motion" (background subtraction, no weights) or "file"
-	// (precomputed detections in the MOTChallenge text format).
+	// Kind is "motion" (background subtraction, no weights), "file"
+	// (precomputed detections in the MOTChallenge text format) or "onnx" (a
+	// YOLO-family ONNX model).
 	Kind string `yaml:"kind"`
 	// Class is the class name given to detections of detectors that do not
 	// classify (motion, file).
 	Class  string       `yaml:"class"`
 	Motion Motion       `yaml:"motion"`
 	File   DetectorFile `yaml:"file"`
+	ONNX   ONNX         `yaml:"onnx"`
 }
 
 // Motion configures the background-subtraction detector.
@@ -89,16 +118,39 @@ type DetectorFile struct {
 
 // Tracker configures the tracker used for every source.
 type Tracker struct {
-	Kind string `yaml:"kind"` // "iou"
-	IoU  IoU    `yaml:"iou"`
+	// Kind is "bytetrack" (Kalman motion model, optimal two-stage
+	// association) or "baseline" (the first-version IoU tracker).
+	Kind      string    `yaml:"kind"`
+	IoU       IoU       `yaml:"iou"`       // settings of the baseline
+	ByteTrack ByteTrack `yaml:"bytetrack"` // settings of bytetrack
 }
 
-// IoU configures the IoU tracker.
+// IoU configures the baseline IoU tracker.
 type IoU struct {
 	MinIoU    float64 `yaml:"min_iou"`
 	BirthHits int     `yaml:"birth_hits"`
 	MaxMisses int     `yaml:"max_misses"`
 	PerClass  bool    `yaml:"per_class"`
+}
+
+// ByteTrack configures the ByteTrack tracker (see track.ByteTrackConfig).
+type ByteTrack struct {
+	HighScore     float64     `yaml:"high_score"`
+	LowScore      float64     `yaml:"low_score"`
+	NewTrackScore float64     `yaml:"new_track_score"`
+	MatchIoU      float64     `yaml:"match_iou"`
+	LowMatchIoU   float64     `yaml:"low_match_iou"`
+	BirthHits     int         `yaml:"birth_hits"`
+	LostTTL       Duration    `yaml:"lost_ttl"`
+	PerClass      bool        `yaml:"per_class"`
+	Motion        TrackMotion `yaml:"motion"`
+}
+
+// TrackMotion tunes the Kalman filter of bytetrack.
+type TrackMotion struct {
+	MeasurementNoise float64 `yaml:"measurement_noise"`
+	Acceleration     float64 `yaml:"acceleration"`
+	SizeAcceleration float64 `yaml:"size_acceleration"`
 }
 
 // Rule is a counting line or a zone on one source. Exactly one of Line and
@@ -167,13 +219,17 @@ func (c *Config) SourceByID(id string) (Source, bool) {
 	return Source{}, false
 }
 
-// Kind reports "scene", "file" or "url".
+// Kind reports "scene", "file", "device", "folder" or "url".
 func (s Source) Kind() string {
 	switch {
 	case s.Scene != nil:
 		return "scene"
 	case s.File != "":
 		return "file"
+	case s.Device != "":
+		return "device"
+	case s.Folder != "":
+		return "folder"
 	default:
 		return "url"
 	}

@@ -106,6 +106,7 @@ func Parse(name string, data []byte) (*Config, error) {
 	cfg.File = name
 	cfg.lines = w.lines
 	cfg.fillRuleDefaults()
+	cfg.fillSourceDefaults()
 	if err := cfg.Validate(); err != nil {
 		return nil, err
 	}

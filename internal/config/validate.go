@@ -1,15 +1,18 @@
 package config
 
 import (
+	"errors"
 	"fmt"
 	"math"
 	"net/url"
 	"os"
 	"regexp"
+	"strings"
 	"time"
 
 	"tallyd/capture/scene"
 	"tallyd/events"
+	"tallyd/track"
 )
 
 var tokenRE = regexp.MustCompile(`^[A-Za-z0-9_-]+$`)
@@ -64,13 +67,13 @@ func (v *validator) source(path string, s Source, ids map[string]bool) {
 	}
 	ids[s.ID] = true
 	set := 0
-	for _, b := range []bool{s.File != "", s.URL != "", s.Scene != nil} {
+	for _, b := range []bool{s.File != "", s.URL != "", s.Device != "", s.Folder != "", s.Scene != nil} {
 		if b {
 			set++
 		}
 	}
 	if set != 1 {
-		v.fail(path, "set exactly one of file, url and scene (found %d)", set)
+		v.fail(path, "set exactly one of file, url, device, folder and scene (found %d)", set)
 	}
 	if s.File != "" {
 		p := v.c.Resolve(s.File)
@@ -80,11 +83,7 @@ func (v *validator) source(path string, s Source, ids map[string]bool) {
 			v.fail(path+".file", "%q is a folder, want a video file", p)
 		}
 	}
-	if s.URL != "" {
-		if u, err := url.Parse(s.URL); err != nil || u.Scheme == "" {
-			v.fail(path+".url", "want a URL with a scheme such as rtsp:// (found %q)", Redact(s.URL))
-		}
-	}
+	v.liveSource(path, s)
 	if s.Scene != nil {
 		if err := SceneConfig(*s.Scene).Validate(); err != nil {
 			v.fail(path+".scene", "%v", err)
@@ -92,6 +91,20 @@ func (v *validator) source(path string, s Source, ids map[string]bool) {
 	}
 	if s.FPS < 0 || math.IsNaN(s.FPS) {
 		v.fail(path+".fps", "must be 0 (every frame) or positive (found %v)", s.FPS)
+	}
+	if s.MaxAge.Duration < 0 {
+		v.fail(path+".max_age", "must not be negative (found %v)", s.MaxAge.Duration)
+	}
+	if g := s.Gate; g != nil {
+		if g.Where != "anywhere" && g.Where != "rules" {
+			v.fail(path+".gate.where", "want anywhere or rules (found %q)", g.Where)
+		}
+		if !(g.Threshold > 0 && g.Threshold < 1) {
+			v.fail(path+".gate.threshold", "must be a fraction of the frame within (0, 1) (found %v)", g.Threshold)
+		}
+		if g.Hold.Duration < 0 {
+			v.fail(path+".gate.hold", "must not be negative (found %v)", g.Hold.Duration)
+		}
 	}
 	if s.StartTime != "" {
 		if _, err := time.Parse(time.RFC3339, s.StartTime); err != nil {
@@ -157,8 +170,10 @@ func (v *validator) detector(ids map[string]bool) {
 				v.fail("detector.file.paths."+id, "cannot open %q: %v", v.c.Resolve(p), unwrapPathErr(err))
 			}
 		}
+	case "onnx":
+		v.onnx()
 	default:
-		v.fail("detector.kind", "want motion or file (found %q)", d.Kind)
+		v.fail("detector.kind", "want motion, file or onnx (found %q)", d.Kind)
 	}
 	if d.Class == "" {
 		v.fail("detector.class", "is required")
@@ -167,19 +182,46 @@ func (v *validator) detector(ids map[string]bool) {
 
 func (v *validator) tracker() {
 	t := v.c.Tracker
-	if t.Kind != "iou" {
-		v.fail("tracker.kind", "want iou (found %q)", t.Kind)
+	var err error
+	prefix := "tracker."
+	switch t.Kind {
+	case "bytetrack":
+		err, prefix = ByteTrackConfig(t.ByteTrack).Validate(), prefix+"bytetrack."
+	case "baseline":
+		err, prefix = IoUConfig(t.IoU).Validate(), prefix+"iou."
+	default:
+		v.fail("tracker.kind", "want bytetrack or baseline (found %q)", t.Kind)
 		return
 	}
-	if !(t.IoU.MinIoU > 0 && t.IoU.MinIoU <= 1) { // also rejects NaN
-		v.fail("tracker.iou.min_iou", "must be within (0, 1] (found %v)", t.IoU.MinIoU)
+	var joined interface{ Unwrap() []error }
+	if errors.As(err, &joined) {
+		for _, e := range joined.Unwrap() {
+			var ce *track.ConfigError
+			if errors.As(e, &ce) {
+				v.fail(prefix+ce.Field, "%s", ce.Msg)
+			} else {
+				v.fail(strings.TrimSuffix(prefix, "."), "%v", e)
+			}
+		}
+	} else if err != nil {
+		v.fail(strings.TrimSuffix(prefix, "."), "%v", err)
 	}
-	if t.IoU.BirthHits < 1 {
-		v.fail("tracker.iou.birth_hits", "must be at least 1 (found %d)", t.IoU.BirthHits)
+}
+
+// ByteTrackConfig converts the site file's bytetrack block for the tracker.
+func ByteTrackConfig(b ByteTrack) track.ByteTrackConfig {
+	return track.ByteTrackConfig{
+		HighScore: b.HighScore, LowScore: b.LowScore, NewTrackScore: b.NewTrackScore,
+		MatchIoU: b.MatchIoU, LowMatchIoU: b.LowMatchIoU, BirthHits: b.BirthHits,
+		LostTTL: b.LostTTL.Duration, PerClass: b.PerClass,
+		Motion: track.MotionConfig{MeasurementNoise: b.Motion.MeasurementNoise,
+			Acceleration: b.Motion.Acceleration, SizeAcceleration: b.Motion.SizeAcceleration},
 	}
-	if t.IoU.MaxMisses < 0 {
-		v.fail("tracker.iou.max_misses", "must not be negative (found %d)", t.IoU.MaxMisses)
-	}
+}
+
+// IoUConfig converts the site file's iou block for the baseline tracker.
+func IoUConfig(c IoU) track.IoUConfig {
+	return track.IoUConfig{MinIoU: c.MinIoU, BirthHits: c.BirthHits, MaxMisses: c.MaxMisses, PerClass: c.PerClass}
 }
 
 var anchors = map[string]bool{"bottom-center": true, "center": true, "top-center": true}

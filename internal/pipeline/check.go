@@ -24,7 +24,7 @@ type CheckedSource struct {
 // Check opens every source and the detector without starting anything, and
 // reports every problem at once (as config.Errors).
 func Check(cfg *config.Config) (CheckReport, error) {
-	p := &Pipeline{cfg: cfg, opts: Options{Pace: capture.PaceMax}}
+	p := &Pipeline{cfg: cfg, opts: Options{Pace: capture.PaceMax}, checking: true}
 	p.log = slog.New(slog.DiscardHandler)
 	defer p.release()
 	rep := CheckReport{NATS: config.Redact(cfg.Output.NATS.URL)}

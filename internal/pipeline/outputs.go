@@ -5,6 +5,7 @@ import (
 
 	"tallyd/detect"
 	"tallyd/detect/motion"
+	"tallyd/detect/onnx"
 	"tallyd/events"
 	"tallyd/events/bus"
 	"tallyd/internal/config"
@@ -31,6 +32,12 @@ func buildDetector(cfg *config.Config) (Detector, error) {
 			WarmupFrames: m.WarmupFrames, MinArea: m.MinArea, OpenKernel: m.OpenKernel,
 			CloseKernel: m.CloseKernel, Class: d.Class,
 		}), nil
+	case "onnx":
+		det, err := onnx.New(onnx.FromSite(cfg))
+		if err != nil {
+			return nil, onnx.SiteError(cfg, err)
+		}
+		return det, nil
 	}
 	return nil, cfg.Errorf("detector.kind", "unknown detector %q", d.Kind)
 }

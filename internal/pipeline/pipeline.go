@@ -5,12 +5,12 @@ import (
 	"errors"
 	"fmt"
 	"log/slog"
+	"math"
 	"sync"
 	"sync/atomic"
 	"time"
 
 	"tallyd/capture"
-	"tallyd/capture/mailbox"
 	"tallyd/capture/scene"
 	"tallyd/events"
 	"tallyd/internal/config"
@@ -30,6 +30,14 @@ type Options struct {
 	ShutdownTimeout time.Duration
 	// Detector replaces the one the site file describes (tests, benchmarks).
 	Detector Detector
+	// TracksOut, when set, writes each source's tracks in the MOTChallenge
+	// text format to this path (with "-<source>" before the extension when
+	// there are several sources).
+	TracksOut string
+	// Workers is the number of detect workers sharing the detector (default
+	// 1). More than one helps a cheap detector on several sources; a detector
+	// that already uses every core (ONNX) wants 1.
+	Workers int
 }
 
 // Pipeline is one site's running daemon.
@@ -43,24 +51,13 @@ type Pipeline struct {
 	closers []func() error // everything else, released by Close in reverse order
 	sources []*sourceRun
 
-	natsURL   string
-	published atomic.Int64
-	failed    atomic.Int64
-	mu        sync.Mutex // guards lastErr
-	lastErr   error
-}
-
-// sourceRun is everything owned for one source.
-type sourceRun struct {
-	id        string
-	info      capture.Info
-	worker    *capture.Worker
-	tracker   Tracker
-	engine    *events.Engine
-	scene     *scene.Scene // generated sources only, for the truth
-	lines     []events.LineRule
-	zones     []events.ZoneRule
-	processed atomic.Int64
+	natsURL     string
+	checking    bool // a dry run: open live sources once, without reconnecting
+	detectCalls atomic.Int64
+	published   atomic.Int64
+	failed      atomic.Int64
+	mu          sync.Mutex // guards lastErr
+	lastErr     error
 }
 
 // Build opens every source, the detector and the publishers. Problems with
@@ -104,57 +101,106 @@ func Build(cfg *config.Config, opts Options) (_ *Pipeline, err error) {
 		}
 	}
 	for _, sr := range p.sources {
-		sr.tracker = track.NewIoU(track.IoUConfig{
-			MinIoU:    cfg.Tracker.IoU.MinIoU,
-			BirthHits: cfg.Tracker.IoU.BirthHits,
-			MaxMisses: cfg.Tracker.IoU.MaxMisses,
-			PerClass:  cfg.Tracker.IoU.PerClass,
-		})
+		sr.newTracker = func() Tracker { return newTracker(cfg) }
+		sr.tracker = sr.newTracker()
 	}
 	if err := p.openOutputs(); err != nil {
 		return nil, err
+	}
+	if opts.TracksOut != "" {
+		if err := p.openTrackFiles(opts.TracksOut); err != nil {
+			return nil, err
+		}
 	}
 	return p, nil
 }
 
 func (p *Pipeline) openSource(i int, sc config.Source) (*sourceRun, error) {
 	path := fmt.Sprintf("sources[%d]", i)
+	key := path + "." + sc.Kind()
 	var (
 		rd   capture.Reader
 		info capture.Info
-		sr   = &sourceRun{id: sc.ID}
+		sr   = &sourceRun{id: sc.ID, cfg: sc}
 	)
 	switch sc.Kind() {
 	case "scene":
 		s, err := scene.New(config.SceneConfig(*sc.Scene))
 		if err != nil {
-			return nil, p.cfg.Errorf(path+".scene", "%v", err)
+			return nil, p.cfg.Errorf(key, "%v", err)
 		}
 		g := capture.NewGenerated(s)
 		rd, info, sr.scene = g, g.Info(), s
 	case "file":
 		v, err := capture.OpenVideo(p.cfg.Resolve(sc.File), p.cfg.Resolve(sc.File), false)
 		if err != nil {
-			return nil, p.cfg.Errorf(path+".file", "%v", err)
+			return nil, p.cfg.Errorf(key, "%v", err)
 		}
 		rd, info = v, v.Info()
-	default:
-		v, err := capture.OpenVideo(sc.URL, config.Redact(sc.URL), true)
+	case "folder":
+		r, in, err := capture.Open(sourceSpec(p.cfg, sc), p.log)
 		if err != nil {
-			return nil, p.cfg.Errorf(path+".url", "%v", err)
+			return nil, p.cfg.Errorf(key, "%v", err)
 		}
-		rd, info = v, v.Info()
+		rd, info = r, in
+	default: // url, device: live, reconnecting
+		if p.checking {
+			r, in, err := capture.Open(sourceSpec(p.cfg, sc), p.log)
+			if err != nil {
+				return nil, p.cfg.Errorf(key, "%v", err)
+			}
+			rd, info = r, in
+			break
+		}
+		rc := capture.NewReconnecting(sourceSpec(p.cfg, sc), capture.Backoff{}, p.log.With("source", sc.ID))
+		in, err := rc.Connect()
+		if errors.Is(err, capture.ErrUnsupported) {
+			_ = rc.Close()
+			return nil, p.cfg.Errorf(key, "%v", err)
+		}
+		if err != nil {
+			// A camera that is down now may come back: keep the source, it
+			// backs off and retries on its own while the others run.
+			p.log.Warn("source not reachable yet; retrying in the background", "source", sc.ID, "err", err)
+		}
+		rd, info = rc, in
 	}
 	sr.info = info
 	sr.worker = capture.NewWorker(sc.ID, rd, info, p.opts.Pace, sc.FPS, p.log)
 	p.closers = append(p.closers, func() error { sr.worker.Out.Discard(); return rd.Close() })
-	start := p.opts.Start
+	sr.start = p.opts.Start
 	if sc.StartTime != "" {
-		start, _ = time.Parse(time.RFC3339, sc.StartTime)
+		sr.start, _ = time.Parse(time.RFC3339, sc.StartTime)
 	}
-	sr.lines, sr.zones = RulesFor(p.cfg, sc.ID, info.Width, info.Height)
-	sr.engine = events.NewEngine(events.Meta{Site: p.cfg.Site, Source: sc.ID, Start: start}, sr.lines, sr.zones)
+	sr.maxAge = sc.MaxAge.Duration
+	if info.Width > 0 && info.Height > 0 {
+		p.setupRules(sr, info.Width, info.Height)
+	}
 	return sr, nil
+}
+
+// setupRules converts the source's rules to pixels of its w x h frames and
+// starts its rule engine and motion gate; called again if a reconnected
+// camera delivers another size.
+func (p *Pipeline) setupRules(sr *sourceRun, w, h int) {
+	sr.w, sr.h = w, h
+	sr.lines, sr.zones = RulesFor(p.cfg, sr.id, w, h)
+	if sr.gate != nil {
+		_ = sr.gate.close()
+		sr.gate = nil
+	}
+	if sr.cfg.Gate != nil {
+		sr.gate = newMotionGate(*sr.cfg.Gate, capture.Info{Width: w, Height: h}, sr.lines, sr.zones)
+	}
+	sr.engine = events.NewEngine(events.Meta{Site: p.cfg.Site, Source: sr.id, Start: sr.start}, sr.lines, sr.zones)
+}
+
+// sourceSpec converts a site-file source for capture.Open.
+func sourceSpec(cfg *config.Config, sc config.Source) capture.SourceSpec {
+	return capture.SourceSpec{ID: sc.ID, URL: sc.URL, Device: sc.Device,
+		File: cfg.Resolve(sc.File), Folder: cfg.Resolve(sc.Folder), FolderFPS: sc.FolderFPS,
+		Transport: sc.Transport, Username: sc.Username, Password: sc.Password.Value(),
+		OpenTimeout: sc.OpenTimeout.Duration, ReadTimeout: sc.ReadTimeout.Duration}
 }
 
 // ruleToPixels converts a rule from frame fractions to source pixels.
@@ -171,84 +217,6 @@ func ruleToPixels(r config.Rule, w, h int) (*events.LineRule, *events.ZoneRule) 
 	}
 	return nil, &events.ZoneRule{Name: r.Name, Polygon: poly, Classes: r.Classes, Anchor: events.Anchor(r.Anchor),
 		Band: band, DwellThreshold: r.Dwell.Duration}
-}
-
-// Run processes until every source has ended or ctx is cancelled, then
-// drains what was already captured, closes open zone stays and flushes the
-// publishers. It returns the first processing error.
-func (p *Pipeline) Run(ctx context.Context) error {
-	// Processing gets its own context: a stop signal ends capture first, and
-	// frames already captured are still processed and their events flushed.
-	procCtx, cancelProc := context.WithCancel(context.Background())
-	defer cancelProc()
-	var capWG, procWG sync.WaitGroup
-	errs := make(chan error, 2*len(p.sources))
-	for _, sr := range p.sources {
-		capWG.Add(1)
-		go func() {
-			defer capWG.Done()
-			if err := sr.worker.Run(ctx); err != nil {
-				p.log.Error("source failed", "source", sr.id, "err", err)
-				errs <- err
-			}
-		}()
-		procWG.Add(1)
-		go func() {
-			defer procWG.Done()
-			if err := p.process(procCtx, sr); err != nil {
-				errs <- err
-			}
-		}()
-	}
-	stopStatus := p.startStatus()
-	done := make(chan struct{})
-	go func() { capWG.Wait(); procWG.Wait(); close(done) }()
-	select {
-	case <-done:
-	case <-ctx.Done():
-		select {
-		case <-done:
-		case <-time.After(p.opts.ShutdownTimeout):
-			p.log.Error("shutdown deadline passed; stopping processing", "timeout", p.opts.ShutdownTimeout)
-			cancelProc()
-			<-done
-		}
-	}
-	stopStatus()
-	flushErr := p.drain()
-	close(errs)
-	for err := range errs {
-		return err
-	}
-	return flushErr
-}
-
-// process is one source's detect → track → rules → publish loop.
-func (p *Pipeline) process(ctx context.Context, sr *sourceRun) error {
-	var lastSeq int64
-	var lastPTS time.Duration
-	batch := make([]*capture.Frame, 1)
-	for {
-		f, err := sr.worker.Out.Get(ctx)
-		if errors.Is(err, mailbox.ErrClosed) {
-			break
-		}
-		if err != nil {
-			return nil // shutdown deadline: stop without finishing
-		}
-		batch[0] = f
-		dets, derr := p.det.Detect(ctx, batch)
-		f.Close()
-		if derr != nil {
-			return fmt.Errorf("source %s frame %d: detect: %w", sr.id, f.Seq, derr)
-		}
-		res := sr.tracker.Update(f.PTS, dets[0])
-		p.publish(ctx, sr.engine.Step(f.Seq, f.PTS, res))
-		sr.processed.Add(1)
-		lastSeq, lastPTS = f.Seq, f.PTS
-	}
-	p.publish(ctx, sr.engine.CloseAll(lastSeq, lastPTS, "stream_end"))
-	return nil
 }
 
 func (p *Pipeline) publish(ctx context.Context, evs []events.Event) {
@@ -294,8 +262,10 @@ func (p *Pipeline) startStatus() func() {
 				return
 			case <-t.C:
 				for _, s := range p.Status() {
-					p.log.Info("status", "source", s.ID, "state", s.State, "read", s.Read, "processed", s.Processed,
-						"dropped_rate", s.DroppedRate, "dropped_mailbox", s.DroppedMailbox, "events", p.published.Load())
+					p.log.Info("status", "source", s.ID, "state", s.State, "err", s.Err, "read", s.Read, "processed", s.Processed,
+						"dropped_rate", s.DroppedRate, "dropped_mailbox", s.DroppedMailbox, "dropped_old", s.DroppedOld,
+						"gated", s.Gated, "age_p50_ms", round1(s.AgeP50ms), "age_p99_ms", round1(s.AgeP99ms),
+						"events", p.published.Load())
 				}
 			}
 		}
@@ -308,8 +278,11 @@ func (p *Pipeline) Status() []SourceStatus {
 	out := make([]SourceStatus, 0, len(p.sources))
 	for _, sr := range p.sources {
 		st := sr.worker.Stats()
+		p50, p99 := sr.ages.percentiles()
 		out = append(out, SourceStatus{ID: sr.id, State: st.State, Err: st.Err, Read: st.Read,
-			Processed: sr.processed.Load(), DroppedRate: st.DroppedRate, DroppedMailbox: st.DroppedMailbox})
+			Processed: sr.processed.Load(), DroppedRate: st.DroppedRate, DroppedMailbox: st.DroppedMailbox,
+			DroppedPrep: st.DroppedPrep, DroppedOld: sr.droppedOld.Load(), Gated: sr.gated.Load(),
+			AgeP50ms: p50, AgeP99ms: p99, DetectTime: time.Duration(sr.detectTime.Load())})
 	}
 	return out
 }
@@ -320,7 +293,7 @@ func (p *Pipeline) Summary() Summary {
 	for _, sr := range p.sources {
 		st := sr.worker.Stats()
 		s.FramesRead += st.Read
-		s.FramesDropped += st.Dropped()
+		s.FramesDropped += st.Dropped() + sr.droppedOld.Load() + sr.gated.Load()
 		s.FramesProcessed += sr.processed.Load()
 		for name, t := range sr.engine.Totals() {
 			s.Rules[name] = t
@@ -407,6 +380,12 @@ func (p *Pipeline) Close() error {
 		err = cerr
 	}
 	p.closers = nil
+	for _, sr := range p.sources {
+		if sr.gate != nil {
+			_ = sr.gate.close()
+			sr.gate = nil
+		}
+	}
 	return err
 }
 
@@ -426,4 +405,32 @@ func RulesFor(cfg *config.Config, sourceID string, w, h int) ([]events.LineRule,
 		}
 	}
 	return lines, zones
+}
+
+func round1(v float64) float64 { return math.Round(v*10) / 10 }
+
+// DetectCalls is the number of Detect calls made (gated and too-old frames
+// make none).
+func (p *Pipeline) DetectCalls() int64 { return p.detectCalls.Load() }
+
+// batchSize is how many frames one Detect call may take: the detector's own
+// batch limit when it has one (BatchSizer), else 1.
+func (p *Pipeline) batchSize() int {
+	if b, ok := p.det.(BatchSizer); ok && b.BatchSize() > 1 {
+		return b.BatchSize()
+	}
+	return 1
+}
+
+// BatchSizer is a detector that runs several frames in one inference call.
+type BatchSizer interface {
+	BatchSize() int
+}
+
+// newTracker builds the tracker the site file asks for (validated already).
+func newTracker(cfg *config.Config) Tracker {
+	if cfg.Tracker.Kind == "baseline" {
+		return track.NewIoU(config.IoUConfig(cfg.Tracker.IoU))
+	}
+	return track.NewByteTrack(config.ByteTrackConfig(cfg.Tracker.ByteTrack))
 }

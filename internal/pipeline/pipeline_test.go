@@ -34,8 +34,6 @@ func siteFile(t *testing.T, body string) *config.Config {
 const sceneRules = `
 detector:
   motion: {min_area: 200}
-tracker:
-  iou: {min_iou: 0.2}
 rules:
   - name: gate
     source: walkway

@@ -2,6 +2,7 @@ package pipeline
 
 import (
 	"sort"
+	"time"
 
 	"tallyd/events"
 )
@@ -24,6 +25,12 @@ type SourceStatus struct {
 	Processed      int64
 	DroppedRate    int64
 	DroppedMailbox int64
+	DroppedPrep    int64
+	DroppedOld     int64 // waited longer than max_age for the detector
+	Gated          int64 // skipped by the motion gate
+	AgeP50ms       float64
+	AgeP99ms       float64
+	DetectTime     time.Duration // total time in Detect attributed to this source
 }
 
 // RuleNames lists rule names in a stable order.

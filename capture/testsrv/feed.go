@@ -1,0 +1,123 @@
+package testsrv
+
+import (
+	"sync"
+	"time"
+)
+
+// feed is a server's camera. It produces frame i at each tick of its clock,
+// but only while a client is watching and the server is not stalled, so a
+// test sees the frames from 0 and a stopped server resumes where it paused.
+type feed struct {
+	frames Frames
+	period time.Duration
+
+	mu      sync.Mutex
+	subs    map[*sub]struct{}
+	stalled bool
+	next    int
+	last    []byte
+
+	quit chan struct{}
+	wg   sync.WaitGroup
+}
+
+// sub receives a feed's frames; a slow one sees only the newest.
+type sub struct{ ch chan frameMsg }
+
+type frameMsg struct {
+	i    int
+	jpeg []byte
+}
+
+func newFeed(frames Frames, fps float64) *feed {
+	if fps <= 0 {
+		fps = 25
+	}
+	f := &feed{frames: frames, period: time.Duration(float64(time.Second) / fps),
+		subs: map[*sub]struct{}{}, quit: make(chan struct{})}
+	f.wg.Add(1)
+	go f.run()
+	return f
+}
+
+func (f *feed) run() {
+	defer f.wg.Done()
+	t := time.NewTicker(f.period)
+	defer t.Stop()
+	for {
+		select {
+		case <-f.quit:
+			return
+		case <-t.C:
+		}
+		f.mu.Lock()
+		if len(f.subs) == 0 || f.stalled {
+			f.mu.Unlock()
+			continue
+		}
+		i := f.next
+		f.next++
+		f.mu.Unlock()
+		data := f.frames(i)
+		f.mu.Lock()
+		if data == nil {
+			data = f.last
+		}
+		f.last = data
+		if data != nil {
+			for s := range f.subs {
+				select { // newest wins
+				case <-s.ch:
+				default:
+				}
+				s.ch <- frameMsg{i: i, jpeg: data}
+			}
+		}
+		f.mu.Unlock()
+	}
+}
+
+func (f *feed) subscribe() *sub {
+	s := &sub{ch: make(chan frameMsg, 1)}
+	f.mu.Lock()
+	f.subs[s] = struct{}{}
+	f.mu.Unlock()
+	return s
+}
+
+func (f *feed) unsubscribe(s *sub) {
+	f.mu.Lock()
+	delete(f.subs, s)
+	f.mu.Unlock()
+}
+
+func (f *feed) stall(on bool) {
+	f.mu.Lock()
+	f.stalled = on
+	f.mu.Unlock()
+}
+
+func (f *feed) isStalled() bool {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	return f.stalled
+}
+
+// produced is the number of frame indices used so far.
+func (f *feed) produced() int {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	return f.next
+}
+
+func (f *feed) watchers() int {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	return len(f.subs)
+}
+
+func (f *feed) close() {
+	close(f.quit)
+	f.wg.Wait()
+}

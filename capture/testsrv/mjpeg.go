@@ -1,0 +1,147 @@
+package testsrv
+
+import (
+	"bufio"
+	"fmt"
+	"net"
+	"net/http"
+	"net/url"
+	"sync"
+	"testing"
+	"time"
+)
+
+// MJPEGOptions configure an HTTP Motion-JPEG test server.
+type MJPEGOptions struct {
+	Frames Frames  // the camera's pictures (required)
+	FPS    float64 // frame rate; default 25
+	Path   string  // stream path; default "/video.mjpg"
+	// Username and Password, when set, are required (HTTP Basic).
+	Username, Password string
+}
+
+// MJPEGServer serves a camera as multipart/x-mixed-replace JPEG parts over
+// HTTP/1.1, the way many IP cameras do. While stalled it accepts
+// connections and sends nothing.
+type MJPEGServer struct {
+	t    testing.TB
+	opts MJPEGOptions
+	feed *feed
+	l    listener
+
+	closeOnce sync.Once
+}
+
+const boundary = "tallydframe"
+
+// StartMJPEG starts an MJPEG server on a free loopback port; it stops when
+// the test ends.
+func StartMJPEG(t testing.TB, o MJPEGOptions) *MJPEGServer {
+	t.Helper()
+	if o.Frames == nil {
+		t.Fatal("testsrv: MJPEGOptions.Frames is required")
+	}
+	if o.Path == "" {
+		o.Path = "/video.mjpg"
+	}
+	s := &MJPEGServer{t: t, opts: o, feed: newFeed(o.Frames, o.FPS)}
+	s.l.serve = s.serve
+	s.l.start(t)
+	t.Cleanup(s.Close)
+	return s
+}
+
+// URL is the stream's address, without credentials.
+func (s *MJPEGServer) URL() string { return "http://" + s.l.address() + s.opts.Path }
+
+// URLWithAuth is the stream's address with user:password in it.
+func (s *MJPEGServer) URLWithAuth(user, password string) string {
+	u := &url.URL{Scheme: "http", Host: s.l.address(), Path: s.opts.Path, User: url.UserPassword(user, password)}
+	return u.String()
+}
+
+// Addr is the server's host:port.
+func (s *MJPEGServer) Addr() string { return s.l.address() }
+
+// Stop closes the listener and every connection.
+func (s *MJPEGServer) Stop() { s.l.stop() }
+
+// Restart listens again on the same port after Stop.
+func (s *MJPEGServer) Restart() { s.l.start(s.t) }
+
+// Stall stops (true) or resumes (false) sending: open connections get no
+// more parts and new ones get no answer at all.
+func (s *MJPEGServer) Stall(on bool) { s.feed.stall(on) }
+
+// FramesSent is the number of frames the camera produced so far.
+func (s *MJPEGServer) FramesSent() int { return s.feed.produced() }
+
+// Watching is the number of connections waiting for or receiving frames.
+func (s *MJPEGServer) Watching() int { return s.feed.watchers() }
+
+// Close stops the server for good; safe to call twice.
+func (s *MJPEGServer) Close() {
+	s.closeOnce.Do(func() {
+		s.l.stop()
+		s.feed.close()
+	})
+}
+
+func (s *MJPEGServer) serve(c net.Conn) {
+	req, err := http.ReadRequest(bufio.NewReader(c))
+	if err != nil {
+		return
+	}
+	o := s.opts
+	if o.Username != "" {
+		if u, p, ok := req.BasicAuth(); !ok || u != o.Username || p != o.Password {
+			writeResponse(c, 401, "Unauthorized", "text/plain", []string{`WWW-Authenticate: Basic realm="testsrv"`}, "credentials required\n")
+			return
+		}
+	}
+	if req.URL.Path != o.Path {
+		writeResponse(c, 404, "Not Found", "text/plain", nil, "no such stream\n")
+		return
+	}
+	sb := s.feed.subscribe()
+	defer s.feed.unsubscribe(sb)
+	// A closed connection ends the wait below: watch for it.
+	gone := make(chan struct{})
+	go func() {
+		var b [1]byte
+		_, _ = c.Read(b[:])
+		close(gone)
+	}()
+	headerSent := false
+	for {
+		var m frameMsg
+		select {
+		case <-gone:
+			return
+		case m = <-sb.ch:
+		}
+		_ = c.SetWriteDeadline(time.Now().Add(5 * time.Second))
+		if !headerSent {
+			if _, err := fmt.Fprintf(c, "HTTP/1.1 200 OK\r\nContent-Type: multipart/x-mixed-replace; boundary=%s\r\n"+
+				"Cache-Control: no-cache\r\nConnection: close\r\n\r\n", boundary); err != nil {
+				return
+			}
+			headerSent = true
+		}
+		if _, err := fmt.Fprintf(c, "--%s\r\nContent-Type: image/jpeg\r\nContent-Length: %d\r\n\r\n", boundary, len(m.jpeg)); err != nil {
+			return
+		}
+		if _, err := c.Write(append(m.jpeg, '\r', '\n')); err != nil {
+			return
+		}
+	}
+}
+
+func writeResponse(c net.Conn, code int, status, ctype string, headers []string, body string) {
+	_ = c.SetWriteDeadline(time.Now().Add(5 * time.Second))
+	fmt.Fprintf(c, "HTTP/1.1 %d %s\r\nContent-Type: %s\r\nContent-Length: %d\r\nConnection: close\r\n", code, status, ctype, len(body))
+	for _, h := range headers {
+		fmt.Fprintf(c, "%s\r\n", h)
+	}
+	fmt.Fprintf(c, "\r\n%s", body)
+}

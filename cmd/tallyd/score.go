@@ -1,0 +1,50 @@
+package main
+
+import (
+	"context"
+	"encoding/json"
+	"fmt"
+	"io"
+
+	"tallyd/internal/config"
+	"tallyd/internal/motfmt"
+	"tallyd/track/eval"
+)
+
+func cmdScore(_ context.Context, args []string, stdout, _ io.Writer) error {
+	fs := newFlags("score", "score --truth gt.txt --tracks tracks.txt [--iou 0.5] [--rules auto|mot15|mot17|mot20] [--json]", stdout)
+	truthPath := fs.String("truth", "", "ground truth, MOTChallenge text format (.gz read directly)")
+	tracksPath := fs.String("tracks", "", "tracker output, MOTChallenge text format (.gz read directly)")
+	iou := fs.Float64("iou", eval.DefaultIoU, "least IoU for a tracker box to match a truth box")
+	rules := fs.String("rules", string(eval.RulesAuto), "evaluation rules: mot15 (all rows), mot17/mot20 (pedestrians only, distractors removed), auto (from the truth's columns)")
+	frames := fs.Int("frames", 0, "sequence length in frames (0: the last frame in the files)")
+	asJSON := fs.Bool("json", false, "print the metrics as one JSON object")
+	if err := parseFlags(fs, args); err != nil {
+		return err
+	}
+	if *truthPath == "" || *tracksPath == "" {
+		return usageErr("--truth and --tracks are required")
+	}
+	gt, err := motfmt.ReadFile(*truthPath)
+	if err != nil {
+		return fmt.Errorf("%w: %v", config.ErrInvalid, err)
+	}
+	tr, err := motfmt.ReadFile(*tracksPath)
+	if err != nil {
+		return fmt.Errorf("%w: %v", config.ErrInvalid, err)
+	}
+	m, err := eval.Evaluate(gt, tr, eval.Options{IoU: *iou, Rules: eval.Rules(*rules), Frames: *frames})
+	if err != nil {
+		return fmt.Errorf("%w: %v", config.ErrInvalid, err)
+	}
+	if *asJSON {
+		b, err := json.Marshal(m)
+		if err != nil {
+			return err
+		}
+		fmt.Fprintln(stdout, string(b))
+		return nil
+	}
+	fmt.Fprint(stdout, m.Table())
+	return nil
+}

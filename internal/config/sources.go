@@ -1,0 +1,155 @@
+package config
+
+import (
+	"fmt"
+	"log/slog"
+	"math"
+	"net/url"
+	"os"
+	"path/filepath"
+	"strings"
+	"time"
+)
+
+// Defaults of the live-source keys; zero values in a site file mean these.
+// The capture package applies the same values (a test there checks).
+const (
+	DefaultOpenTimeout = 10 * time.Second // open_timeout: connect and read the first frame
+	DefaultReadTimeout = 5 * time.Second  // read_timeout: longest wait for a frame
+	DefaultFolderFPS   = 10.0             // folder_fps
+	DefaultTransport   = "tcp"            // transport of rtsp:// sources
+)
+
+// streamSchemes are the URL schemes a url source may use.
+var streamSchemes = map[string]bool{"rtsp": true, "rtsps": true, "http": true, "https": true}
+
+// Secret is a password from the site file. It prints as "xxxxx" (in logs,
+// errors, %v and %+v dumps, YAML and JSON); Value gives the text to use.
+type Secret string
+
+const redacted = "xxxxx"
+
+// Value is the secret itself, for opening the source only.
+func (s Secret) Value() string { return string(s) }
+
+// String is the redacted form: "xxxxx", or "" when no password is set.
+func (s Secret) String() string {
+	if s == "" {
+		return ""
+	}
+	return redacted
+}
+
+// Format prints the redacted form for every verb.
+func (s Secret) Format(f fmt.State, verb rune) {
+	if verb == 'q' {
+		fmt.Fprintf(f, "%q", s.String())
+		return
+	}
+	_, _ = f.Write([]byte(s.String()))
+}
+
+// LogValue keeps the secret out of slog output.
+func (s Secret) LogValue() slog.Value { return slog.StringValue(s.String()) }
+
+// MarshalYAML writes the redacted form.
+func (s Secret) MarshalYAML() (any, error) { return s.String(), nil }
+
+// MarshalJSON writes the redacted form.
+func (s Secret) MarshalJSON() ([]byte, error) { return []byte(fmt.Sprintf("%q", s.String())), nil }
+
+// Display is what the source reads, fit for logs and status output: the URL
+// with any password hidden (and the username field merged in), the device or
+// the path.
+func (s Source) Display() string {
+	switch s.Kind() {
+	case "url":
+		u, err := url.Parse(s.URL)
+		if err != nil {
+			return "(unparsable URL)"
+		}
+		if s.Username != "" {
+			u.User = url.UserPassword(s.Username, redacted)
+		}
+		return u.Redacted()
+	case "device":
+		return "device " + s.Device
+	case "folder":
+		return s.Folder
+	case "file":
+		return s.File
+	}
+	return "generated scene"
+}
+
+// liveSource checks the keys of url, device and folder sources.
+func (v *validator) liveSource(path string, s Source) {
+	isURL := s.URL != ""
+	if isURL {
+		u, err := url.Parse(s.URL)
+		switch {
+		case err != nil || !streamSchemes[strings.ToLower(u.Scheme)]:
+			v.fail(path+".url", "want an rtsp://, rtsps://, http:// or https:// URL (found %q)", Redact(s.URL))
+		case u.Host == "":
+			v.fail(path+".url", "the URL has no host (found %q)", Redact(s.URL))
+		case u.User != nil && (s.Username != "" || s.Password != ""):
+			v.fail(path+".username", "the url already holds credentials; set them in one place")
+		}
+		if s.Transport != "" {
+			if s.Transport != "tcp" && s.Transport != "udp" {
+				v.fail(path+".transport", "want tcp or udp (found %q)", s.Transport)
+			} else if err == nil && !strings.HasPrefix(strings.ToLower(u.Scheme), "rtsp") {
+				v.fail(path+".transport", "applies to rtsp:// URLs only")
+			}
+		}
+		if s.Password != "" && s.Username == "" {
+			v.fail(path+".password", "is set without username")
+		}
+	} else {
+		for _, k := range []struct {
+			key string
+			set bool
+		}{{"transport", s.Transport != ""}, {"username", s.Username != ""}, {"password", s.Password != ""},
+			{"open_timeout", s.OpenTimeout.Duration != 0}, {"read_timeout", s.ReadTimeout.Duration != 0}} {
+			if k.set {
+				v.fail(path+"."+k.key, "applies to url sources only")
+			}
+		}
+	}
+	if isURL && s.OpenTimeout.Duration < 0 {
+		v.fail(path+".open_timeout", "must not be negative (found %v)", s.OpenTimeout.Duration)
+	}
+	if isURL && s.ReadTimeout.Duration < 0 {
+		v.fail(path+".read_timeout", "must not be negative (found %v)", s.ReadTimeout.Duration)
+	}
+	if s.Device != "" && !isDeviceIndex(s.Device) && !filepath.IsAbs(s.Device) {
+		v.fail(path+".device", "want a camera index such as 0 or a path such as /dev/video0 (found %q)", s.Device)
+	}
+	if s.Folder != "" {
+		p := v.c.Resolve(s.Folder)
+		if st, err := os.Stat(p); err != nil {
+			v.fail(path+".folder", "cannot open %q: %v", p, unwrapPathErr(err))
+		} else if !st.IsDir() {
+			v.fail(path+".folder", "%q is a file, want a folder of images", p)
+		}
+	}
+	switch {
+	case s.FolderFPS < 0 || math.IsNaN(s.FolderFPS):
+		v.fail(path+".folder_fps", "must be positive, or 0 for the default %v (found %v)", DefaultFolderFPS, s.FolderFPS)
+	case s.FolderFPS != 0 && s.Folder == "":
+		v.fail(path+".folder_fps", "applies to folder sources only")
+	}
+}
+
+// isDeviceIndex reports whether s is a camera index: 1 to 3 decimal digits.
+func isDeviceIndex(s string) bool {
+	if len(s) == 0 || len(s) > 3 {
+		return false
+	}
+	for _, c := range s {
+		if c < '0' || c > '9' {
+			return false
+		}
+	}
+	return true
+}
