@@ -12,6 +12,7 @@ import (
 	"testing"
 	"time"
 
+	"tallyd/capture/testsrv"
 	"tallyd/events"
 	"tallyd/events/bus"
 	"tallyd/internal/pipeline"
@@ -476,5 +477,38 @@ func TestBadMOTFile(t *testing.T) {
 	_, e, code := cli(t, "track", "--detections", bad, "--out", filepath.Join(dir, "o.txt"))
 	if code != exitBadInput || !strings.Contains(e, bad+":2:") {
 		t.Errorf("exit %d, stderr %q; want exit 2 naming %s:2", code, e, bad)
+	}
+}
+
+// TestCheckReportsEverySource: `check` opens every source once and reports
+// each that fails, naming it, without its password, exit code 2.
+func TestCheckReportsEverySource(t *testing.T) {
+	dir := t.TempDir()
+	if err := os.Mkdir(filepath.Join(dir, "empty"), 0o755); err != nil {
+		t.Fatal(err)
+	}
+	site := filepath.Join(dir, "site.yaml")
+	y := fmt.Sprintf(`site: s
+sources:
+  - {id: cam, url: "rtsp://viewer:hunter2@%s/live", open_timeout: 1s}
+  - {id: stills, folder: empty}
+  - {id: walkway, scene: {seed: 1}}
+`, testsrv.ClosedAddr(t))
+	if err := os.WriteFile(site, []byte(y), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	_, e, code := cli(t, "check", "-c", site)
+	t.Log(e)
+	if code != exitBadInput {
+		t.Errorf("exit %d, want 2", code)
+	}
+	for _, want := range []string{"sources[0].url: source cam: open rtsp://viewer:xxxxx@", "connection refused",
+		"sources[1].folder: source stills:"} {
+		if !strings.Contains(e, want) {
+			t.Errorf("check output lacks %q", want)
+		}
+	}
+	if strings.Contains(e, "hunter2") {
+		t.Error("check printed the password")
 	}
 }
