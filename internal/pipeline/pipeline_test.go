@@ -18,7 +18,7 @@ import (
 	"tallyd/internal/config"
 )
 
-func siteFile(t *testing.T, body string) *config.Config {
+func siteFile(t testing.TB, body string) *config.Config {
 	t.Helper()
 	p := filepath.Join(t.TempDir(), "site.yaml")
 	if err := os.WriteFile(p, []byte(body), 0o644); err != nil {

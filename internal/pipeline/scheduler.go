@@ -244,6 +244,7 @@ func (s *scheduler) run(ctx context.Context, jobs []job) error {
 		}
 		p.publishFrom(ctx, sr, f.Captured, sr.engine.Step(f.Seq, f.PTS, res))
 		sr.processed.Add(1)
+		sr.ages.add(float64(time.Since(f.Captured)) / float64(time.Millisecond))
 		sr.detectTime.Add(int64(detectTime) / int64(len(batch)))
 		sr.lastSeq, sr.lastPTS, sr.lastCaptured = f.Seq, f.PTS, f.Captured
 	}

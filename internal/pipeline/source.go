@@ -94,13 +94,13 @@ func (p *Pipeline) publishFrom(ctx context.Context, sr *sourceRun, captured time
 		if !captured.IsZero() {
 			ms := float64(time.Since(captured)) / float64(time.Millisecond)
 			evs[i].Data.FrameAgeMS = &ms
-			sr.ages.add(ms)
 		}
 	}
 	p.publish(ctx, evs)
 }
 
-// latencies keeps the most recent frame ages at publish for percentiles.
+// latencies keeps the most recent frame ages (capture to the end of
+// publishing the frame's events) for percentiles.
 type latencies struct {
 	mu  sync.Mutex
 	buf [1024]float64
