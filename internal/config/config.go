@@ -80,8 +80,8 @@ type Scene struct {
 	FPS       float64  `yaml:"fps"`
 	Duration  Duration `yaml:"duration"`
 	Noise     *float64 `yaml:"noise"`
-	Crossings int      `yaml:"crossings"`
-	Visitors  int      `yaml:"visitors"`
+	Crossings *int     `yaml:"crossings"` // unset: the scene's default; 0 is none
+	Visitors  *int     `yaml:"visitors"`  // unset: the scene's default; 0 is none
 }
 
 // Detector selects and configures the detector shared by all sources.

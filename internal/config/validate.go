@@ -113,18 +113,21 @@ func (v *validator) source(path string, s Source, ids map[string]bool) {
 	}
 }
 
-// SceneConfig converts the site file's scene block into the generator's config.
+// SceneConfig converts the site file's scene block into the generator's
+// config: keys left out take the scene's defaults; an explicit 0 (noise,
+// crossings, visitors) means none.
 func SceneConfig(s Scene) scene.Config {
 	c := scene.Config{
-		Seed: s.Seed, Width: s.Width, Height: s.Height, FPS: s.FPS,
-		Duration: s.Duration.Duration, Crossings: s.Crossings, Visitors: s.Visitors,
-	}
+		Seed: s.Seed, Width: s.Width, Height: s.Height, FPS: s.FPS, Duration: s.Duration.Duration,
+	}.WithDefaults()
 	if s.Noise != nil {
 		c.Noise = *s.Noise
 	}
-	c = c.WithDefaults()
-	if s.Noise != nil {
-		c.Noise = *s.Noise
+	if s.Crossings != nil {
+		c.Crossings = *s.Crossings
+	}
+	if s.Visitors != nil {
+		c.Visitors = *s.Visitors
 	}
 	return c
 }

@@ -86,7 +86,7 @@ func TestMotionGating(t *testing.T) {
 	if testing.Short() {
 		t.Skip("long generated scenes")
 	}
-	for _, tc := range []struct{ where, duration string }{{"rules", "1200s"}, {"anywhere", "1200s"}} {
+	for _, tc := range []struct{ where, duration string }{{"rules", "600s"}, {"anywhere", "600s"}} {
 		t.Run(tc.where, func(t *testing.T) {
 			cfg := siteFile(t, "site: s\nsources:\n  - id: walkway\n    gate: {where: "+tc.where+"}\n"+
 				"    scene: {seed: 3, duration: "+tc.duration+", crossings: 3, visitors: 0}\n"+sceneRules+
