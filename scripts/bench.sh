@@ -43,3 +43,19 @@ echo "written to $report"
 # end-to-end replay and per-stage time, appended to the same report.
 echo
 bash scripts/bench_onnx.sh | tee -a "$report"
+
+# ---------------------------------------------------------------------------
+# Live sources at scale (internal/pipeline BenchmarkLiveSources): cameras held
+# at 10 fps, frame age and drops at twice that many, a soak with 8 cameras
+# (TALLYD_SOAK, default 10m) and the CPU motion gating saves. Long: about
+# 15 minutes. Skip with TALLYD_BENCH_LIVE=0.
+if [ "${TALLYD_BENCH_LIVE:-1}" != "0" ]; then
+  {
+    echo
+    echo "## Live sources: 10 fps Motion-JPEG cameras over loopback, YOLOX-Nano on ONNX Runtime"
+    echo
+    export TALLYD_ORT_LIB="${TALLYD_ORT_LIB:-$PWD/.cache/onnxruntime/1.24.1/libonnxruntime.so.1}"
+    go test -run '^$' -bench LiveSources -benchtime 1x -timeout 60m ./internal/pipeline/ 2>&1 \
+      | sed -n 's/^ *live_bench_test.go:[0-9]*: //p; /^BenchmarkLiveSources/p'
+  } | tee -a "$report"
+fi
