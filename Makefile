@@ -20,7 +20,7 @@ test: setup
 	$(GO) vet ./...
 	$(GO) test -race $(PURE_PKGS)
 	$(GO) test -timeout 40m ./...
-	$(GO) test -tags matprofile -run TestNoMatLeak -count=1 ./capture/ ./internal/pipeline/
+	$(GO) test -tags matprofile -run TestNoMatLeak -count=1 ./capture/ ./detect/onnx/ ./internal/pipeline/
 
 bench: setup
 	@bash scripts/bench.sh

@@ -512,3 +512,27 @@ sources:
 		t.Error("check printed the password")
 	}
 }
+
+// TestCheckONNX: `check` on the shipped people-counting config loads the
+// shared model and says what it found (skipped without ../shared).
+func TestCheckONNX(t *testing.T) {
+	if _, err := os.Stat("../../../shared/models/yolox_nano_coco_416.onnx"); err != nil {
+		t.Skipf("shared model absent (%v)", err)
+	}
+	if os.Getenv("TALLYD_ORT_LIB") == "" {
+		lib, _ := filepath.Abs("../../.cache/onnxruntime/1.24.1/libonnxruntime.so.1")
+		if _, err := os.Stat(lib); err != nil {
+			t.Skipf("ONNX Runtime library absent (%v); run make setup", err)
+		}
+		t.Setenv("TALLYD_ORT_LIB", lib)
+	}
+	out, e, code := cli(t, "check", "-c", "../../configs/footage-people.yaml")
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, e)
+	}
+	for _, want := range []string{"engine ONNX Runtime 1.24.1", "output output [1,3549,85]", "layout yolox-grid, 80 classes"} {
+		if !strings.Contains(out, want) {
+			t.Errorf("check output lacks %q:\n%s", want, out)
+		}
+	}
+}
