@@ -1,10 +1,5 @@
 package detect
 
-import (
-	"cmp"
-	"slices"
-)
-
 // DIoU is the Distance-IoU of two boxes (Zheng et al., "Distance-IoU Loss:
 // Faster and Better Learning for Bounding Box Regression", AAAI 2020):
 // IoU − ρ²/c², where ρ is the distance between the box centres and c the
@@ -33,26 +28,5 @@ func DIoU(a, b Box) float64 {
 // than under IoU. classAware, ordering and NaN handling are as in NMS; the
 // input slice is not modified.
 func DIoUNMS(dets []Detection, threshold float64, classAware bool) []Detection {
-	if len(dets) == 0 {
-		return nil
-	}
-	sorted := slices.Clone(dets)
-	slices.SortStableFunc(sorted, func(a, b Detection) int { return cmp.Compare(b.Score, a.Score) })
-	kept := sorted[:0]
-	for _, d := range sorted {
-		suppressed := false
-		for _, k := range kept {
-			if classAware && k.Class != d.Class {
-				continue
-			}
-			if DIoU(k.Box, d.Box) >= threshold {
-				suppressed = true
-				break
-			}
-		}
-		if !suppressed {
-			kept = append(kept, d)
-		}
-	}
-	return slices.Clip(kept)
+	return greedy(dets, classAware, func(k, d Box) bool { return DIoU(k, d) >= threshold })
 }

@@ -12,6 +12,19 @@ import (
 // scores keep their input order, NaN scores come last. The input slice is not
 // modified; the result is a new slice ordered by descending score.
 func NMS(dets []Detection, iouThreshold float64, classAware bool) []Detection {
+	return greedy(dets, classAware, func(k, d Box) bool {
+		// Disjoint boxes have IoU 0, which suppresses nothing unless the
+		// threshold is negative; this test is much cheaper than IoU.
+		if disjoint(k, d) && iouThreshold >= 0 {
+			return false
+		}
+		return k.IoU(d) > iouThreshold
+	})
+}
+
+// greedy visits detections by descending score (stable; NaN last) and keeps
+// each one that no kept detection suppresses. The input is not modified.
+func greedy(dets []Detection, classAware bool, suppresses func(kept, d Box) bool) []Detection {
 	if len(dets) == 0 {
 		return nil
 	}
@@ -26,12 +39,7 @@ func NMS(dets []Detection, iouThreshold float64, classAware bool) []Detection {
 			if classAware && k.Class != d.Class {
 				continue
 			}
-			// Disjoint boxes have IoU 0, which suppresses nothing unless the
-			// threshold is negative; this test is much cheaper than IoU.
-			if disjoint(k.Box, d.Box) && iouThreshold >= 0 {
-				continue
-			}
-			if k.Box.IoU(d.Box) > iouThreshold {
+			if suppresses(k.Box, d.Box) {
 				suppressed = true
 				break
 			}
