@@ -1,6 +1,8 @@
 package track
 
 import (
+	"cmp"
+	"slices"
 	"time"
 
 	"tallyd/internal/motfmt"
@@ -23,14 +25,6 @@ func OutputRows(frame int, ts time.Duration, res Result, lostWindow time.Duratio
 		}
 	}
 	rows := ToRows(frame, tracks)
-	sortRowsByID(rows)
+	slices.SortStableFunc(rows, func(a, b motfmt.Row) int { return cmp.Compare(a.ID, b.ID) })
 	return rows
-}
-
-func sortRowsByID(rows []motfmt.Row) {
-	for i := 1; i < len(rows); i++ {
-		for j := i; j > 0 && rows[j].ID < rows[j-1].ID; j-- {
-			rows[j], rows[j-1] = rows[j-1], rows[j]
-		}
-	}
 }

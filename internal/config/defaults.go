@@ -25,9 +25,9 @@ const (
 	DefaultWarmupFrames = 30
 	DefaultOpenKernel   = 3
 	DefaultCloseKernel  = 7
-	DefaultMinIoU       = 0.3
-	DefaultBirthHits    = 3
-	DefaultMaxMisses    = 5
+	DefaultMinIoU       = track.DefaultMinIoU    // baseline tracker
+	DefaultBirthHits    = track.DefaultBirthHits // baseline tracker
+	DefaultMaxMisses    = track.DefaultMaxMisses // baseline tracker
 )
 
 // ONNX detector defaults: a YOLOX-style model (BGR, pixels 0..255,

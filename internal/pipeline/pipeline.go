@@ -55,7 +55,6 @@ type Pipeline struct {
 	checking    bool // a dry run: open live sources once, without reconnecting
 	detectCalls atomic.Int64
 	published   atomic.Int64
-	failed      atomic.Int64
 	mu          sync.Mutex // guards lastErr
 	lastErr     error
 }
@@ -225,7 +224,6 @@ func (p *Pipeline) publish(ctx context.Context, evs []events.Event) {
 		for _, pub := range p.pubs {
 			if err := pub.Publish(ctx, ev); err != nil {
 				ok = false
-				p.failed.Add(1)
 				p.noteErr(fmt.Errorf("publish %s: %w", ev.ID, err))
 			}
 		}
@@ -332,24 +330,6 @@ func SceneTruth(s *scene.Scene, lines []events.LineRule, zones []events.ZoneRule
 		frames[i] = tf
 	}
 	return events.TruthTotals(lines, zones, frames)
-}
-
-// Sources lists the source IDs with the size of their frames.
-func (p *Pipeline) Sources() []SourceInfo {
-	out := make([]SourceInfo, len(p.sources))
-	for i, sr := range p.sources {
-		out[i] = SourceInfo{ID: sr.id, Info: sr.info, Lines: sr.lines, Zones: sr.zones, Scene: sr.scene}
-	}
-	return out
-}
-
-// SourceInfo describes an opened source.
-type SourceInfo struct {
-	ID    string
-	Info  capture.Info
-	Lines []events.LineRule
-	Zones []events.ZoneRule
-	Scene *scene.Scene
 }
 
 // drain flushes and closes the publishers, so nothing already counted is lost.
