@@ -22,7 +22,7 @@ func TestOpenBadInput(t *testing.T) {
 	silent := testsrv.StartSilent(t)
 	empty := t.TempDir()
 
-	short := 1500 * time.Millisecond
+	short := time.Second
 	tests := []struct {
 		name string
 		spec SourceSpec
@@ -44,9 +44,9 @@ func TestOpenBadInput(t *testing.T) {
 		{"web page", SourceSpec{ID: "gate", URL: page + "/index.html"},
 			ErrNotVideo, "source gate: open " + page + "/index.html: the server sent text/html, not a video stream"},
 		{"silent server", SourceSpec{ID: "gate", URL: "rtsp://" + silent + "/live", OpenTimeout: short},
-			ErrTimeout, "source gate: open rtsp://" + silent + "/live: the server accepted the connection but sent nothing within open_timeout 1.5s"},
+			ErrTimeout, "source gate: open rtsp://" + silent + "/live: the server accepted the connection but sent nothing within open_timeout 1s"},
 		{"silent http server", SourceSpec{ID: "gate", URL: "http://" + silent + "/video.mjpg", OpenTimeout: short},
-			ErrTimeout, "source gate: open http://" + silent + "/video.mjpg: the server accepted the connection but sent nothing within open_timeout 1.5s"},
+			ErrTimeout, "source gate: open http://" + silent + "/video.mjpg: the server accepted the connection but sent nothing within open_timeout 1s"},
 		{"unsupported scheme", SourceSpec{ID: "gate", URL: "ftp://" + closed + "/cam"},
 			ErrUnsupported, "source gate: open ftp://" + closed + "/cam: unsupported URL scheme \"ftp\" (want rtsp, rtsps, http or https)"},
 		{"missing device path", SourceSpec{ID: "desk", Device: "/dev/video-tallyd-absent"},
@@ -58,6 +58,7 @@ func TestOpenBadInput(t *testing.T) {
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
+			t.Parallel() // the silent servers take the open timeout each
 			start := time.Now()
 			rd, _, err := Open(tt.spec, nil)
 			if err == nil {

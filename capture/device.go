@@ -12,7 +12,7 @@ import (
 // through OpenCV's Video4Linux backend. OpenCV's open-time timeouts belong
 // to the FFmpeg backend only; Video4Linux reads wait at most its own select
 // timeout (OPENCV_VIDEOIO_V4L_SELECT_TIMEOUT, 10 s by default, from memory).
-func openDevice(dev string) (*Video, error) {
+func openDevice(dev string, maxPixels int) (*Video, error) {
 	path := dev
 	if isIndex(dev) {
 		path = "/dev/video" + dev
@@ -25,12 +25,12 @@ func openDevice(dev string) (*Video, error) {
 			return nil, fmt.Errorf("cannot use device %s: %w", path, unwrapPath(err))
 		}
 	}
-	v, err := openVideo(func() (*cvCapture, bool) {
+	v, err := openVideo(func() (*cvCapture, error) {
 		if n, err := strconv.Atoi(dev); err == nil && isIndex(dev) {
 			return openCVIndex(n, apiV4L2)
 		}
-		return openCVName(dev, apiV4L2, 0, 0)
-	}, true, 0)
+		return openCVName(dev, apiV4L2, nil)
+	}, true, 0, maxPixels)
 	switch err {
 	case errNotReadable:
 		return nil, fmt.Errorf("cannot open %s (busy, or not a video capture device)", path)

@@ -25,6 +25,14 @@ var (
 	// ErrUnsupported: the source can never work as configured (a scheme or a
 	// pixel format tallyd does not read); a reconnecting source gives up.
 	ErrUnsupported = errors.New("unsupported source")
+	// ErrTooLarge: the source's frames have more pixels than the limit
+	// (SourceSpec.MaxFramePixels). It also matches ErrUnsupported, so a
+	// reconnecting source gives up.
+	ErrTooLarge = errors.New("frame too large")
+	// ErrEndedEarly: a recording reached its end after fewer frames than its
+	// container declared (a cut or damaged file). It comes wrapped together
+	// with ErrEndOfStream.
+	ErrEndedEarly = errors.New("recording ended early")
 )
 
 var (
@@ -44,6 +52,26 @@ func (r *reason) Is(target error) bool { return target == r.kind }
 
 func reasonf(kind error, format string, args ...any) error {
 	return &reason{kind: kind, msg: fmt.Sprintf(format, args...)}
+}
+
+// sizeError is a frame over the pixel limit; it matches ErrTooLarge and
+// ErrUnsupported.
+type sizeError struct{ w, h, limit int }
+
+func (e *sizeError) Error() string {
+	return fmt.Sprintf("frame size %dx%d (%.1f megapixels) is over the limit of %.1f megapixels (max_frame_pixels)",
+		e.w, e.h, float64(e.w)*float64(e.h)/1e6, float64(e.limit)/1e6)
+}
+
+func (e *sizeError) Is(target error) bool { return target == ErrTooLarge || target == ErrUnsupported }
+
+// checkSize returns a *sizeError when a w x h frame has more than limit
+// pixels.
+func checkSize(w, h, limit int) error {
+	if int64(w)*int64(h) > int64(limit) {
+		return &sizeError{w: w, h: h, limit: limit}
+	}
+	return nil
 }
 
 // SourceError is a failure of one source: which source, which step and why.

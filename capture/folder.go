@@ -10,6 +10,8 @@ import (
 	"time"
 
 	"gocv.io/x/gocv"
+
+	"tallyd/internal/repeat"
 )
 
 // imageExts are the file name endings an image folder reads (any case).
@@ -26,31 +28,18 @@ type Folder struct {
 	i     int
 	w, h  int
 	first gocv.Mat // first image, decoded at open
-	bad   *repeated
+	bad   *repeat.Reporter
 }
 
-// OpenFolder lists the images of dir and decodes the first one, so that an
-// empty or unreadable folder fails here. fps <= 0 takes DefaultFolderFPS.
-func OpenFolder(dir string, fps float64, log *slog.Logger) (*Folder, error) {
-	f, err := openFolder(dir, fps, log)
-	if err != nil {
-		return nil, &SourceError{Op: "open", Target: dir, Err: err}
-	}
-	return f, nil
-}
-
-func openFolder(dir string, fps float64, log *slog.Logger) (*Folder, error) {
-	if log == nil {
-		log = slog.New(slog.DiscardHandler)
-	}
-	if fps <= 0 {
-		fps = DefaultFolderFPS
-	}
+// openFolder lists the images of dir and decodes the first one, so that an
+// empty or unreadable folder, or one whose first image is over maxPixels,
+// fails here. Open makes a Folder with the spec's defaults in place.
+func openFolder(dir string, fps float64, maxPixels int, log *slog.Logger) (*Folder, error) {
 	entries, err := os.ReadDir(dir)
 	if err != nil {
 		return nil, fmt.Errorf("cannot list the folder: %w", unwrapPath(err))
 	}
-	f := &Folder{dir: dir, fps: fps, bad: newRepeated(log, "image skipped", time.Second)}
+	f := &Folder{dir: dir, fps: fps, bad: repeat.New(log, "image skipped", 0)}
 	var names []string
 	for _, e := range entries {
 		n := e.Name()
@@ -72,6 +61,10 @@ func openFolder(dir string, fps float64, log *slog.Logger) (*Folder, error) {
 		return nil, fmt.Errorf("cannot decode the first image %s", filepath.Base(f.files[0]))
 	}
 	f.w, f.h = f.first.Cols(), f.first.Rows()
+	if err := checkSize(f.w, f.h, maxPixels); err != nil {
+		_ = f.first.Close()
+		return nil, fmt.Errorf("%s: %w", filepath.Base(f.files[0]), err)
+	}
 	return f, nil
 }
 
@@ -81,7 +74,7 @@ func (f *Folder) Info() Info {
 }
 
 // Skipped is the number of images skipped so far (undecodable or of another size).
-func (f *Folder) Skipped() int64 { return f.bad.total() }
+func (f *Folder) Skipped() int64 { return f.bad.Total() }
 
 // Read implements Reader: it decodes the next image into dst. The timestamp
 // of the image at position i in the folder is i / fps, skipped ones included.
@@ -98,28 +91,29 @@ func (f *Folder) Read(dst *gocv.Mat) (time.Duration, error) {
 		switch {
 		case img.Empty():
 			_ = img.Close()
-			f.bad.note(fmt.Errorf("cannot decode %s", filepath.Base(f.files[i])))
+			f.bad.Note(fmt.Errorf("cannot decode %s", filepath.Base(f.files[i])))
 			continue
 		case img.Cols() != f.w || img.Rows() != f.h:
 			err := fmt.Errorf("%s is %dx%d, the folder's first image is %dx%d", filepath.Base(f.files[i]), img.Cols(), img.Rows(), f.w, f.h)
 			_ = img.Close()
-			f.bad.note(err)
+			f.bad.Note(err)
 			continue
 		}
 		_ = dst.Close()
 		*dst = img
 		return time.Duration(float64(i) / f.fps * float64(time.Second)), nil
 	}
-	f.bad.flush()
+	f.bad.Flush()
 	return 0, fmt.Errorf("read %s: %w", f.dir, ErrEndOfStream)
 }
 
-// Close implements Reader.
+// Close implements Reader; it logs skipped images not reported yet.
 func (f *Folder) Close() error {
 	if f.first.Ptr() != nil {
 		_ = f.first.Close()
 		f.first = gocv.Mat{}
 	}
+	f.bad.Flush()
 	return nil
 }
 

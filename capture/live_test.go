@@ -1,7 +1,6 @@
 package capture
 
 import (
-	"bytes"
 	"context"
 	"errors"
 	"log/slog"
@@ -9,33 +8,18 @@ import (
 	"runtime"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"syscall"
 	"testing"
 	"time"
 
 	"tallyd/capture/testsrv"
+
+	"tallyd/internal/testkit"
 )
 
-// syncBuffer is a log sink safe for concurrent writers.
-type syncBuffer struct {
-	mu sync.Mutex
-	b  bytes.Buffer
-}
-
-func (s *syncBuffer) Write(p []byte) (int, error) {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	return s.b.Write(p)
-}
-
-func (s *syncBuffer) String() string {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	return s.b.String()
-}
-
-func testLogger() (*slog.Logger, *syncBuffer) {
-	var buf syncBuffer
+func testLogger() (*slog.Logger, *testkit.Buffer) {
+	var buf testkit.Buffer
 	return slog.New(slog.NewTextHandler(&buf, &slog.HandlerOptions{Level: slog.LevelDebug})), &buf
 }
 
@@ -125,7 +109,7 @@ func TestRTSPReconnect(t *testing.T) {
 			log, logs := testLogger()
 			spec := SourceSpec{ID: "gate", URL: srv.URL(), Username: "counter", Password: secret, Transport: transport,
 				OpenTimeout: 5 * time.Second, ReadTimeout: 3 * time.Second} // generous: CI runs packages side by side
-			r := NewReconnecting(spec, Backoff{Min: 100 * time.Millisecond, Max: 400 * time.Millisecond}, log)
+			r := NewReconnecting(spec, Backoff{Min: 50 * time.Millisecond, Max: 100 * time.Millisecond}, log)
 			info, err := r.Connect()
 			if err != nil {
 				t.Fatal(err)
@@ -143,27 +127,27 @@ func TestRTSPReconnect(t *testing.T) {
 			runErr := make(chan error, 1)
 			go func() { runErr <- w.Run(ctx) }()
 
-			waitFor(t, 10*time.Second, "frames on connection 1", func() bool { return c.frames(1) >= 20 })
-			if st := w.Stats(); st.State != "up" || st.Link.Conn != 1 {
+			testkit.WaitFor(t, 10*time.Second, "frames on connection 1", func() bool { return c.frames(1) >= 10 })
+			if st := w.Stats(); st.State != StateUp || st.Link.Conn != 1 {
 				t.Fatalf("stats while up: %+v", st)
 			}
 			srv.Stop()
-			waitFor(t, 10*time.Second, "the loss to be reported", func() bool { return len(c.losses()) == 1 })
-			waitFor(t, 10*time.Second, "two failed reconnect attempts", func() bool { return w.Stats().Link.Failures >= 3 })
+			testkit.WaitFor(t, 10*time.Second, "the loss to be reported", func() bool { return len(c.losses()) == 1 })
+			testkit.WaitFor(t, 10*time.Second, "two failed reconnect attempts", func() bool { return w.Stats().Link.Failures >= 3 })
 			st := w.Stats()
-			if st.State != "backing_off" && st.State != "connecting" {
+			if st.State != StateBackingOff && st.State != StateConnecting {
 				t.Errorf("state while the server is down = %q", st.State)
 			}
 			if !strings.Contains(st.Err, "cannot connect to "+srv.Addr()+": connection refused") {
 				t.Errorf("reason while down = %q", st.Err)
 			}
 			l := c.losses()[0]
-			if l.Conn != 1 || l.Source != "gate" || !errors.Is(l.Err, ErrDisconnected) || l.LastSeq < 19 {
+			if l.Conn != 1 || l.Source != "gate" || !errors.Is(l.Err, ErrDisconnected) || l.LastSeq < 9 {
 				t.Errorf("lost = %+v", l)
 			}
 			srv.Restart()
-			waitFor(t, 15*time.Second, "frames on connection 2", func() bool { return c.frames(2) >= 20 })
-			if st := w.Stats(); st.State != "up" || st.Link.Conn != 2 || st.Err != "" {
+			testkit.WaitFor(t, 15*time.Second, "frames on connection 2", func() bool { return c.frames(2) >= 10 })
+			if st := w.Stats(); st.State != StateUp || st.Link.Conn != 2 || st.Err != "" {
 				t.Errorf("stats after reconnect: %+v", st)
 			}
 			if n := len(c.losses()); n != 1 {
@@ -179,7 +163,7 @@ func TestRTSPReconnect(t *testing.T) {
 				t.Fatal("worker did not stop")
 			}
 			<-c.done
-			if st := w.Stats(); st.State != "stopped" {
+			if st := w.Stats(); st.State != StateStopped {
 				t.Errorf("final state %q", st.State)
 			}
 			c.mu.Lock()
@@ -191,7 +175,7 @@ func TestRTSPReconnect(t *testing.T) {
 			}
 			c.mu.Unlock()
 			srv.Close()
-			waitFor(t, 5*time.Second, "goroutines to settle", func() bool { return runtime.NumGoroutine() <= before })
+			testkit.WaitFor(t, 5*time.Second, "goroutines to settle", func() bool { return runtime.NumGoroutine() <= before })
 
 			text := logs.String()
 			for _, want := range []string{`msg="source up"`, `msg="source lost"`, `msg="source unavailable; retrying"`, "conn=2"} {
@@ -219,8 +203,8 @@ func TestMJPEGStall(t *testing.T) {
 	sc := testScene(t)
 	srv := testsrv.StartMJPEG(t, testsrv.MJPEGOptions{Frames: testsrv.SceneFrames(sc, 80), FPS: 25})
 	log, logs := testLogger()
-	spec := SourceSpec{ID: "door", URL: srv.URL(), OpenTimeout: 2 * time.Second, ReadTimeout: time.Second}
-	r := NewReconnecting(spec, Backoff{Min: 100 * time.Millisecond, Max: 200 * time.Millisecond}, log)
+	spec := SourceSpec{ID: "door", URL: srv.URL(), OpenTimeout: 1500 * time.Millisecond, ReadTimeout: time.Second}
+	r := NewReconnecting(spec, Backoff{Min: 50 * time.Millisecond, Max: 100 * time.Millisecond}, log)
 	w := NewWorker("door", r, Info{Live: true}, PaceRealtime, 0, log)
 	c := consume(w)
 	ctx, cancel := context.WithCancel(context.Background())
@@ -228,34 +212,85 @@ func TestMJPEGStall(t *testing.T) {
 	runErr := make(chan error, 1)
 	go func() { runErr <- w.Run(ctx) }()
 
-	waitFor(t, 10*time.Second, "frames", func() bool { return c.frames(1) >= 10 })
+	testkit.WaitFor(t, 10*time.Second, "frames", func() bool { return c.frames(1) >= 10 })
 	stalled := time.Now()
 	srv.Stall(true)
-	waitFor(t, 8*time.Second, "the stall to be noticed", func() bool { return len(c.losses()) == 1 })
+	testkit.WaitFor(t, 8*time.Second, "the stall to be noticed", func() bool { return len(c.losses()) == 1 })
 	if took := time.Since(stalled); took > 4*time.Second {
 		t.Errorf("stall noticed after %v with a 1s read timeout", took)
 	}
 	if l := c.losses()[0]; !strings.Contains(l.Err.Error(), "no frame within read_timeout 1s (stalled)") {
 		t.Errorf("lost: %v", l.Err)
 	}
-	waitFor(t, 20*time.Second, "failed reconnect attempts", func() bool { return w.Stats().Link.Failures >= 3 })
+	testkit.WaitFor(t, 20*time.Second, "a failed reconnect attempt", func() bool { return w.Stats().Link.Failures >= 2 })
 	st := w.Stats()
-	if st.State != "backing_off" && st.State != "connecting" {
+	if st.State != StateBackingOff && st.State != StateConnecting {
 		t.Errorf("state while stalled = %q", st.State)
 	}
 	if !strings.Contains(st.Err, "sent nothing") && !strings.Contains(st.Err, "no video") {
 		t.Errorf("reason while stalled = %q", st.Err)
 	}
 	srv.Stall(false)
-	waitFor(t, 15*time.Second, "frames after the stall", func() bool { return c.frames(2) >= 10 })
+	testkit.WaitFor(t, 15*time.Second, "frames after the stall", func() bool { return c.frames(2) >= 10 })
 	cancel()
 	if err := <-runErr; err != nil {
 		t.Fatal(err)
 	}
 	<-c.done
 	srv.Close()
-	waitFor(t, 5*time.Second, "goroutines to settle", func() bool { return runtime.NumGoroutine() <= before })
+	testkit.WaitFor(t, 5*time.Second, "goroutines to settle", func() bool { return runtime.NumGoroutine() <= before })
 	if !strings.Contains(logs.String(), "count=") {
 		t.Errorf("repeated failures not summed in the log:\n%s", logs.String())
+	}
+}
+
+// TestLiveFrameTooLarge: a camera that comes back from an outage with
+// frames over the limit is refused at the reconnect: the worker fails with
+// the same error as an over-large file.
+func TestLiveFrameTooLarge(t *testing.T) {
+	small := testsrv.EncodeBGR(make([]byte, 320*240*3), 320, 240, 80)
+	large := testsrv.EncodeBGR(make([]byte, 640*480*3), 640, 480, 80)
+	var grown atomic.Bool
+	srv := testsrv.StartMJPEG(t, testsrv.MJPEGOptions{FPS: 25, Frames: func(int) []byte {
+		if grown.Load() {
+			return large
+		}
+		return small
+	}})
+	log, logs := testLogger()
+	spec := SourceSpec{ID: "door", URL: srv.URL(), MaxFramePixels: 100_000, OpenTimeout: 5 * time.Second, ReadTimeout: 3 * time.Second}
+	r := NewReconnecting(spec, Backoff{Min: 50 * time.Millisecond, Max: 100 * time.Millisecond}, log)
+	info, err := r.Connect()
+	if err != nil || info.Width != 320 {
+		t.Fatalf("connect: %+v, %v", info, err)
+	}
+	w := NewWorker("door", r, info, PaceRealtime, 0, log)
+	c := consume(w)
+	runErr := make(chan error, 1)
+	go func() { runErr <- w.Run(context.Background()) }()
+	testkit.WaitFor(t, 10*time.Second, "frames", func() bool { return c.frames(1) >= 3 })
+	srv.Stop()
+	grown.Store(true)
+	srv.Restart()
+
+	var err2 error
+	select {
+	case err2 = <-runErr:
+	case <-time.After(15 * time.Second):
+		t.Fatalf("worker still running with frames over the limit; stats %+v\n%s", w.Stats(), logs)
+	}
+	<-c.done
+	want := "source door: open " + srv.URL() + ": frame size 640x480 (0.3 megapixels) is over the limit of 0.1 megapixels (max_frame_pixels)"
+	if err2 == nil || err2.Error() != want || !errors.Is(err2, ErrTooLarge) {
+		t.Fatalf("run:\n got: %v\nwant: %s", err2, want)
+	}
+	if st := w.Stats(); st.State != StateFailed || st.Link.State != StateFailed || st.Err != want {
+		t.Errorf("stats %+v", st)
+	}
+	if lost := c.losses(); len(lost) != 1 || lost[0].Conn != 1 {
+		t.Errorf("losses %+v", lost)
+	}
+	if c.frames(2) != 0 {
+		t.Errorf("%d frames handed on from the refused connection", c.frames(2))
 	}
 }

@@ -4,7 +4,9 @@ package capture
 
 import (
 	"context"
+	"errors"
 	"image/color"
+	"os"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -13,11 +15,14 @@ import (
 	"gocv.io/x/gocv"
 
 	"tallyd/capture/testsrv"
+
+	"tallyd/internal/testkit"
 )
 
-// TestNoMatLeak runs an image folder and a reconnecting RTSP source (server
-// stopped and restarted mid-run) through workers and checks that every
-// OpenCV Mat they made was closed. Run with `go test -tags matprofile`.
+// TestNoMatLeak runs an image folder, a cut recording and a reconnecting
+// RTSP source (server stopped and restarted mid-run) through workers, opens
+// a video over the frame-size limit, and checks that every OpenCV Mat they
+// made was closed. Run with `go test -tags matprofile`.
 func TestNoMatLeak(t *testing.T) {
 	before := gocv.MatProfile.Count()
 
@@ -30,26 +35,48 @@ func TestNoMatLeak(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	w := NewWorker("stills", rd, info, PaceMax, 0, testLog(t))
+	w := NewWorker("stills", rd, info, PaceMax, 0, testkit.Log(t))
 	c := consume(w)
 	if err := w.Run(context.Background()); err != nil {
 		t.Fatal(err)
 	}
 	<-c.done
 
+	path := writeAVI(t, "cut.avi", 64, 48, 20)
+	data, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(path, data[:len(data)/2], 0o644); err != nil {
+		t.Fatal(err)
+	}
+	if _, _, err := Open(SourceSpec{ID: "big", File: path, MaxFramePixels: 1000}, nil); !errors.Is(err, ErrTooLarge) {
+		t.Fatalf("open over the limit: %v", err)
+	}
+	rd, info, err = Open(SourceSpec{ID: "cut", File: path}, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	w = NewWorker("cut", rd, info, PaceMax, 0, testkit.Log(t))
+	c = consume(w)
+	if err := w.Run(context.Background()); err != nil || !w.Stats().EndedEarly {
+		t.Fatalf("cut recording: %v, %+v", err, w.Stats())
+	}
+	<-c.done
+
 	srv := testsrv.StartRTSP(t, testsrv.RTSPOptions{Frames: testsrv.SceneFrames(testScene(t), 80)})
 	r := NewReconnecting(SourceSpec{ID: "gate", URL: srv.URL(), ReadTimeout: 3 * time.Second},
-		Backoff{Min: 50 * time.Millisecond, Max: 100 * time.Millisecond}, testLog(t))
-	w = NewWorker("gate", r, Info{Live: true}, PaceRealtime, 5, testLog(t))
+		Backoff{Min: 50 * time.Millisecond, Max: 100 * time.Millisecond}, testkit.Log(t))
+	w = NewWorker("gate", r, Info{Live: true}, PaceRealtime, 5, testkit.Log(t))
 	c = consume(w)
 	ctx, cancel := context.WithCancel(context.Background())
 	done := make(chan error, 1)
 	go func() { done <- w.Run(ctx) }()
-	waitFor(t, 10*time.Second, "frames", func() bool { return c.frames(1) >= 5 })
+	testkit.WaitFor(t, 10*time.Second, "frames", func() bool { return c.frames(1) >= 5 })
 	srv.Stop()
-	waitFor(t, 10*time.Second, "the loss", func() bool { return len(c.losses()) == 1 })
+	testkit.WaitFor(t, 10*time.Second, "the loss", func() bool { return len(c.losses()) == 1 })
 	srv.Restart()
-	waitFor(t, 10*time.Second, "frames after reconnecting", func() bool { return c.frames(2) >= 5 })
+	testkit.WaitFor(t, 10*time.Second, "frames after reconnecting", func() bool { return c.frames(2) >= 5 })
 	cancel()
 	if err := <-done; err != nil {
 		t.Fatal(err)

@@ -10,22 +10,15 @@ import (
 	"time"
 
 	"gocv.io/x/gocv"
-)
 
-// LinkState is where a live source's connection stands.
-type LinkState string
-
-// Link states.
-const (
-	LinkConnecting LinkState = "connecting"  // opening the source
-	LinkUp         LinkState = "up"          // frames are arriving
-	LinkBackingOff LinkState = "backing_off" // waiting before the next attempt
-	LinkFailed     LinkState = "failed"      // given up: the source cannot work as configured
+	"tallyd/internal/repeat"
 )
 
 // Link is a live source's connection state, for status lines and tests.
 type Link struct {
-	State    LinkState
+	// State is StateConnecting, StateUp, StateBackingOff, or StateFailed
+	// once the source was given up (it cannot work as configured).
+	State    State
 	Reason   string    // why it is not up: the last error, password hidden ("" when up)
 	Since    time.Time // when State began
 	Conn     int64     // connections made so far; frames of connection n carry Frame.Conn == n
@@ -120,7 +113,7 @@ type Reconnecting struct {
 	attempts int64 // failed attempts since the last success
 	start    time.Time
 	lastPTS  time.Duration
-	fails    *repeated
+	fails    *repeat.Reporter
 
 	mu   sync.Mutex // guards link and info
 	link Link
@@ -141,8 +134,8 @@ func NewReconnecting(spec SourceSpec, bo Backoff, log *slog.Logger) *Reconnectin
 		open:  Open,
 		done:  make(chan struct{}),
 		start: now,
-		fails: newRepeated(log, "source unavailable; retrying", time.Second),
-		link:  Link{State: LinkConnecting, Since: now},
+		fails: repeat.New(log, "source unavailable; retrying", 0),
+		link:  Link{State: StateConnecting, Since: now},
 	}
 }
 
@@ -220,7 +213,7 @@ func (r *Reconnecting) waitLocked(ctx context.Context) error {
 
 // attemptLocked opens the source once and records the outcome.
 func (r *Reconnecting) attemptLocked() error {
-	r.setLink(func(l *Link) { l.State, l.NextTry = LinkConnecting, time.Time{} })
+	r.setLink(func(l *Link) { l.State, l.NextTry = StateConnecting, time.Time{} })
 	rd, info, err := r.open(r.spec, r.log)
 	now := time.Now()
 	if err == nil {
@@ -230,13 +223,13 @@ func (r *Reconnecting) attemptLocked() error {
 		r.info = info
 		r.link.Conn++
 		conn = r.link.Conn
-		r.link.State, r.link.Reason, r.link.Since = LinkUp, "", now
+		r.link.State, r.link.Reason, r.link.Since = StateUp, "", now
 		r.mu.Unlock()
 		args := []any{"conn", conn, "width", info.Width, "height", info.Height}
 		if conn > 1 || r.attempts > 0 {
 			args = append(args, "failed_attempts", r.attempts, "down_for", now.Sub(r.downAt).Round(time.Millisecond))
 		}
-		r.fails.reset()
+		r.fails.Reset()
 		r.log.Info("source up", args...)
 		r.attempts = 0
 		return nil
@@ -247,7 +240,7 @@ func (r *Reconnecting) attemptLocked() error {
 	r.attempts++
 	if errors.Is(err, ErrUnsupported) {
 		r.setLink(func(l *Link) {
-			l.State, l.Reason, l.Since = LinkFailed, err.Error(), now
+			l.State, l.Reason, l.Since = StateFailed, err.Error(), now
 			l.Failures++
 		})
 		r.log.Error("source failed", "err", err)
@@ -257,10 +250,10 @@ func (r *Reconnecting) attemptLocked() error {
 	r.delay = r.bo.jitter(r.step)
 	r.waitNext = true
 	r.setLink(func(l *Link) {
-		l.State, l.Reason, l.Since, l.NextTry = LinkBackingOff, err.Error(), now, now.Add(r.delay)
+		l.State, l.Reason, l.Since, l.NextTry = StateBackingOff, err.Error(), now, now.Add(r.delay)
 		l.Failures++
 	})
-	r.fails.note(err, "attempts", r.attempts, "retry_in", r.delay.Round(time.Millisecond))
+	r.fails.Note(err, "attempts", r.attempts, "retry_in", r.delay.Round(time.Millisecond))
 	return err
 }
 
@@ -279,7 +272,7 @@ func (r *Reconnecting) lostLocked(err error) {
 	r.downAt = now
 	var conn int64
 	r.setLink(func(l *Link) {
-		l.State, l.Reason, l.Since, l.NextTry = LinkBackingOff, err.Error(), now, now.Add(r.delay)
+		l.State, l.Reason, l.Since, l.NextTry = StateBackingOff, err.Error(), now, now.Add(r.delay)
 		l.Failures++
 		conn = l.Conn
 	})
@@ -311,12 +304,16 @@ func (r *Reconnecting) Info() Info {
 }
 
 // Close ends a back-off wait, closes the connection and stops further
-// reads; it waits for a read in progress (at most the read timeout). Safe to
-// call twice and from any goroutine.
+// reads; it waits for a read in progress (at most the read timeout) and logs
+// failed attempts not reported yet. Safe to call twice and from any
+// goroutine.
 func (r *Reconnecting) Close() error {
 	r.closeOnce.Do(func() { close(r.done) })
 	r.rmu.Lock()
 	defer r.rmu.Unlock()
+	if !r.closed {
+		r.fails.Flush()
+	}
 	r.closed = true
 	if r.cur != nil {
 		_ = r.cur.Close()

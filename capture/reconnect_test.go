@@ -11,6 +11,8 @@ import (
 	"time"
 
 	"gocv.io/x/gocv"
+
+	"tallyd/internal/testkit"
 )
 
 func TestBackoffSteps(t *testing.T) {
@@ -78,14 +80,14 @@ func TestReconnectingStates(t *testing.T) {
 	s := &script{plan: []error{errRefused, errRefused, errRefused}, frames: 2}
 	r := newScripted(s, Backoff{Min: time.Millisecond, Max: 4 * time.Millisecond}, nil)
 	defer r.Close()
-	if l := r.Link(); l.State != LinkConnecting || l.Conn != 0 {
+	if l := r.Link(); l.State != StateConnecting || l.Conn != 0 {
 		t.Fatalf("initial link %+v", l)
 	}
 	if _, err := r.Connect(); !errors.Is(err, ErrUnreachable) {
 		t.Fatalf("connect: %v", err)
 	}
 	l := r.Link()
-	if l.State != LinkBackingOff || l.Failures != 1 || l.NextTry.IsZero() ||
+	if l.State != StateBackingOff || l.Failures != 1 || l.NextTry.IsZero() ||
 		l.Reason != "source cam: open rtsp://cam: cannot connect to cam:554: connection refused" {
 		t.Fatalf("after a failed connect: %+v", l)
 	}
@@ -96,7 +98,7 @@ func TestReconnectingStates(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if l := r.Link(); l.State != LinkUp || l.Conn != 1 || l.Failures != 3 || l.Reason != "" {
+	if l := r.Link(); l.State != StateUp || l.Conn != 1 || l.Failures != 3 || l.Reason != "" {
 		t.Fatalf("after reconnecting: %+v", l)
 	}
 	if r.step != 4*time.Millisecond {
@@ -110,7 +112,7 @@ func TestReconnectingStates(t *testing.T) {
 	if !errors.Is(err, ErrDisconnected) {
 		t.Fatalf("third read: %v, want the loss", err)
 	}
-	if l := r.Link(); l.State != LinkBackingOff || l.Conn != 1 || !strings.Contains(l.Reason, "broke off") {
+	if l := r.Link(); l.State != StateBackingOff || l.Conn != 1 || !strings.Contains(l.Reason, "broke off") {
 		t.Fatalf("after the loss: %+v", l)
 	}
 	pts3, err := r.ReadContext(ctx, &m)
@@ -154,7 +156,7 @@ func TestReconnectingGivesUpOnUnsupported(t *testing.T) {
 		t.Fatalf("run: %v", err)
 	}
 	st := w.Stats()
-	if st.State != "failed" || st.Link.State != LinkFailed || !strings.Contains(st.Err, "unsupported URL scheme") {
+	if st.State != StateFailed || st.Link.State != StateFailed || !strings.Contains(st.Err, "unsupported URL scheme") {
 		t.Errorf("stats %+v", st)
 	}
 	if s.opens != 1 {
@@ -211,11 +213,11 @@ func TestReconnectingStopsWaiting(t *testing.T) {
 		ctx, cancel := context.WithCancel(context.Background())
 		done := make(chan error, 1)
 		go func() { done <- w.Run(ctx) }()
-		waitFor(t, 2*time.Second, "backing off", func() bool { return w.Stats().State == "backing_off" })
+		testkit.WaitFor(t, 2*time.Second, "backing off", func() bool { return w.Stats().State == StateBackingOff })
 		cancel()
 		select {
 		case err := <-done:
-			if err != nil || w.Stats().State != "stopped" {
+			if err != nil || w.Stats().State != StateStopped {
 				t.Fatalf("run: %v, stats %+v", err, w.Stats())
 			}
 		case <-time.After(2 * time.Second):
@@ -227,13 +229,13 @@ func TestReconnectingStopsWaiting(t *testing.T) {
 // TestReconnectingSumsFailures: many failed attempts in a short time are
 // logged at most once a second, with their count and the last error.
 func TestReconnectingSumsFailures(t *testing.T) {
-	plan := make([]error, 300)
+	plan := make([]error, 100)
 	for i := range plan {
 		plan[i] = errRefused
 	}
 	s := &script{plan: plan, frames: 1}
 	log, logs := testLogger()
-	r := newScripted(s, Backoff{Min: 2 * time.Millisecond, Max: 4 * time.Millisecond}, log)
+	r := newScripted(s, Backoff{Min: time.Millisecond, Max: 2 * time.Millisecond}, log)
 	defer r.Close()
 	m := gocv.NewMat()
 	defer m.Close()
@@ -246,7 +248,7 @@ func TestReconnectingSumsFailures(t *testing.T) {
 	if maxLines := int(elapsed/time.Second) + 2; lines > maxLines || lines < 1 {
 		t.Errorf("%d retry lines in %v, want 1..%d:\n%s", lines, elapsed, maxLines, logs)
 	}
-	if !strings.Contains(logs.String(), "failed_attempts=300") {
+	if !strings.Contains(logs.String(), "failed_attempts=100") {
 		t.Errorf("up line does not sum the failures:\n%s", logs)
 	}
 }

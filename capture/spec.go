@@ -18,6 +18,10 @@ const (
 	DefaultReadTimeout = 5 * time.Second  // longest wait for one frame of a stream
 	DefaultFolderFPS   = 10.0             // frame rate given to an image folder
 	DefaultTransport   = "tcp"            // RTSP media over the RTSP connection
+	// DefaultMaxFramePixels is the largest frame (width x height) a source
+	// may deliver: 16 megapixels, above 4K UHD (8.3). Larger frames would
+	// make the detectors' per-frame buffers exhaust memory.
+	DefaultMaxFramePixels = 16_000_000
 )
 
 // Kind is what a source reads.
@@ -29,6 +33,7 @@ const (
 	KindURL    Kind = "url"    // a stream: RTSP, HTTP(S) MJPEG
 	KindDevice Kind = "device" // a local camera, by index or path
 	KindFolder Kind = "folder" // a folder of images, in name order
+	KindScene  Kind = "scene"  // a generated scene (NewGenerated), never opened by Open
 )
 
 // SourceSpec says how to open one source: the capture side of a site file's
@@ -42,6 +47,11 @@ type SourceSpec struct {
 	Folder string // image folder path
 
 	FolderFPS float64 // frames per second given to a folder's images
+
+	// MaxFramePixels is the largest frame (width x height) accepted; a source
+	// whose frames are larger fails with ErrTooLarge. 0 takes
+	// DefaultMaxFramePixels.
+	MaxFramePixels int
 
 	// Streams (URL) only.
 	Transport   string        // RTSP media transport: "tcp" or "udp"
@@ -107,6 +117,9 @@ func (s SourceSpec) withDefaults() SourceSpec {
 	if s.Transport == "" {
 		s.Transport = DefaultTransport
 	}
+	if s.MaxFramePixels <= 0 {
+		s.MaxFramePixels = DefaultMaxFramePixels
+	}
 	return s
 }
 
@@ -131,9 +144,11 @@ func (s SourceSpec) streamURL() (*url.URL, error) {
 	return u, nil
 }
 
-// Open opens a source once, reads its first frame and describes it. Errors
-// are *SourceError values naming the source and saying what is wrong, with
-// any password hidden; errors.Is finds the sentinel (ErrUnreachable, ...).
+// Open opens a file, stream URL, device or image folder once, reads its
+// first frame and describes it; it is the one way to open every kind of
+// source but a generated scene (NewGenerated). Errors are *SourceError
+// values naming the source and saying what is wrong, with any password
+// hidden; errors.Is finds the sentinel (ErrUnreachable, ErrTooLarge, ...).
 // Live sources (URL, device) should be read through a Reconnecting instead,
 // which calls Open again after a loss; log receives repeated-problem reports
 // of image folders.
@@ -151,22 +166,17 @@ func Open(spec SourceSpec, log *slog.Logger) (Reader, Info, error) {
 	)
 	switch spec.Kind() {
 	case KindFolder:
-		f, err := openFolder(spec.Folder, spec.FolderFPS, log.With("source", spec.ID))
+		f, err := openFolder(spec.Folder, spec.FolderFPS, spec.MaxFramePixels, log.With("source", spec.ID))
 		if err != nil {
 			return fail(err)
 		}
 		return f, f.Info(), nil
 	case KindDevice:
-		v, err = openDevice(spec.Device)
+		v, err = openDevice(spec.Device, spec.MaxFramePixels)
 	case KindURL:
 		v, err = openStream(spec)
-	default:
-		v, err = openVideo(func() (*cvCapture, bool) {
-			var c *cvCapture
-			var ok bool
-			ffmpegEnv.with("", func() { c, ok = openCVName(spec.File, apiFFmpeg, 0, 0) })
-			return c, ok
-		}, false, 0)
+	default: // KindFile
+		v, err = openVideo(openFFmpeg(spec.File, "", nil), false, 0, spec.MaxFramePixels)
 	}
 	if err != nil {
 		return fail(err)
@@ -186,18 +196,13 @@ func openStream(spec SourceSpec) (*Video, error) {
 	if strings.HasPrefix(strings.ToLower(u.Scheme), "rtsp") {
 		env = "rtsp_transport;" + spec.Transport
 	}
-	raw := u.String()
 	start := time.Now()
-	v, err := openVideo(func() (*cvCapture, bool) {
-		var c *cvCapture
-		var ok bool
-		ffmpegEnv.with(env, func() { c, ok = openCVName(raw, apiFFmpeg, spec.OpenTimeout, spec.ReadTimeout) })
-		return c, ok
-	}, true, spec.ReadTimeout)
+	v, err := openVideo(openFFmpeg(u.String(), env, timeoutParams(spec.OpenTimeout, spec.ReadTimeout)),
+		true, spec.ReadTimeout, spec.MaxFramePixels)
 	if err == nil {
 		return v, nil
 	}
-	if errors.Is(err, ErrUnsupported) {
+	if errors.Is(err, ErrUnsupported) || errors.Is(err, errOpenCV) {
 		return nil, err
 	}
 	// When OpenCV waited the whole open timeout, the probe need not wait as

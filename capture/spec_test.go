@@ -8,7 +8,7 @@ import (
 	"testing"
 	"time"
 
-	"tallyd/internal/config"
+	"tallyd/capture/scene"
 )
 
 func TestSpecName(t *testing.T) {
@@ -102,10 +102,10 @@ func FuzzParseRTSPResponse(f *testing.F) {
 	})
 }
 
-// TestDefaultsMatchConfig: the site file documents the defaults capture applies.
-func TestDefaultsMatchConfig(t *testing.T) {
-	if config.DefaultOpenTimeout != DefaultOpenTimeout || config.DefaultReadTimeout != DefaultReadTimeout ||
-		config.DefaultFolderFPS != DefaultFolderFPS || config.DefaultTransport != DefaultTransport {
-		t.Error("defaults differ between internal/config and capture")
+// TestLimitsMatchScene: a generated scene is capped at the frame size
+// capture accepts.
+func TestLimitsMatchScene(t *testing.T) {
+	if scene.MaxPixels != DefaultMaxFramePixels {
+		t.Errorf("scene.MaxPixels %d, capture.DefaultMaxFramePixels %d", scene.MaxPixels, DefaultMaxFramePixels)
 	}
 }

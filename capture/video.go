@@ -9,7 +9,8 @@ import (
 )
 
 // Video reads a recorded file, a stream URL or a local camera through
-// OpenCV's video I/O: whatever container and codec that build reads.
+// OpenCV's video I/O: whatever container and codec that build reads. Open
+// makes one.
 type Video struct {
 	name        string // for errors; passwords already redacted
 	cap         *cvCapture
@@ -18,63 +19,89 @@ type Video struct {
 	seq         int64
 	last        time.Duration
 	readTimeout time.Duration // live sources: a read this long without a frame is a stall
+	maxPixels   int
 }
 
-// OpenVideo opens a file (live=false) or a stream URL (live=true) through the
-// FFmpeg backend and reads its first frame, so that a file OpenCV cannot
-// decode fails here, before anything starts. name is used in errors. Streams
-// get the default open and read timeouts; Open takes them from a SourceSpec.
-func OpenVideo(uri, name string, live bool) (*Video, error) {
-	var openTO, readTO time.Duration
-	if live {
-		openTO, readTO = DefaultOpenTimeout, DefaultReadTimeout
+// openFFmpeg returns an opener for openVideo: name through the FFmpeg
+// backend, with the OPENCV_FFMPEG_CAPTURE_OPTIONS value env (see envGate)
+// and open-time parameters, FFmpeg's own log lines routed to ours.
+func openFFmpeg(name, env string, params []int) func() (*cvCapture, error) {
+	return func() (*cvCapture, error) {
+		var (
+			c   *cvCapture
+			err error
+		)
+		routeFFmpegLog()
+		ffmpegEnv.with(env, func() { c, err = openCVName(name, apiFFmpeg, params) })
+		routeFFmpegLog() // again, in case the open replaced our callback
+		return c, err
 	}
-	v, err := openVideo(func() (*cvCapture, bool) {
-		var c *cvCapture
-		var ok bool
-		ffmpegEnv.with("", func() { c, ok = openCVName(uri, apiFFmpeg, openTO, readTO) })
-		return c, ok
-	}, live, readTO)
+}
+
+// openVideo probes a capture opened by open: it checks the frame size the
+// container declares, reads the first frame and checks that frames are
+// 8-bit BGR and within maxPixels. Errors say what is wrong, without a name.
+func openVideo(open func() (*cvCapture, error), live bool, readTimeout time.Duration, maxPixels int) (*Video, error) {
+	c, err := open()
 	if err != nil {
-		return nil, fmt.Errorf("open %s: %w", name, err)
+		return nil, err
 	}
-	v.name = name
-	return v, nil
-}
-
-// openVideo probes a capture opened by open: it reads the first frame and
-// checks that frames are 8-bit BGR. Errors say what is wrong, without a name.
-func openVideo(open func() (*cvCapture, bool), live bool, readTimeout time.Duration) (*Video, error) {
-	c, ok := open()
-	if !ok {
-		return nil, errNotReadable
-	}
-	v := &Video{cap: c, first: gocv.NewMat(), readTimeout: readTimeout}
-	if !c.read(&v.first) || v.first.Empty() {
+	v := &Video{cap: c, readTimeout: readTimeout, maxPixels: maxPixels}
+	fail := func(err error) (*Video, error) {
 		_ = v.Close()
-		return nil, errNoFrame
+		return nil, err
 	}
-	if v.first.Type() != gocv.MatTypeCV8UC3 {
-		t := v.first.Type()
-		_ = v.Close()
-		return nil, reasonf(ErrUnsupported, "frames are of type %v, want 8-bit BGR", t)
+	// Refuse a frame size the container declares before decoding a frame.
+	w, err := c.get(gocv.VideoCaptureFrameWidth)
+	if err != nil {
+		return fail(err)
 	}
-	fps := c.get(gocv.VideoCaptureFPS)
+	h, err := c.get(gocv.VideoCaptureFrameHeight)
+	if err != nil {
+		return fail(err)
+	}
+	if w > 0 && h > 0 && w < math.MaxInt32 && h < math.MaxInt32 {
+		if err := checkSize(int(w), int(h), maxPixels); err != nil {
+			return fail(err)
+		}
+	}
+	v.first = gocv.NewMat()
+	ok, err := c.read(&v.first)
+	switch {
+	case err != nil:
+		return fail(err)
+	case !ok || v.first.Empty():
+		return fail(errNoFrame)
+	case v.first.Type() != gocv.MatTypeCV8UC3:
+		return fail(reasonf(ErrUnsupported, "frames are of type %v, want 8-bit BGR", v.first.Type()))
+	}
+	if err := checkSize(v.first.Cols(), v.first.Rows(), maxPixels); err != nil {
+		return fail(err)
+	}
+	fps, err := c.get(gocv.VideoCaptureFPS)
+	if err != nil {
+		return fail(err)
+	}
 	if math.IsNaN(fps) || fps <= 0 || fps > 1000 {
 		fps = 0
 	}
-	n := int(c.get(gocv.VideoCaptureFrameCount))
-	if live || n < 0 {
+	n, err := c.get(gocv.VideoCaptureFrameCount)
+	if err != nil {
+		return fail(err)
+	}
+	if live || !(n > 0 && n < math.MaxInt32) {
 		n = 0
 	}
-	v.info = Info{Width: v.first.Cols(), Height: v.first.Rows(), FPS: fps, Frames: n, Live: live}
+	v.info = Info{Width: v.first.Cols(), Height: v.first.Rows(), FPS: fps, Frames: int(n), Live: live}
 	return v, nil
 }
 
 // Info describes the opened source.
 func (v *Video) Info() Info { return v.info }
 
-// Read implements Reader.
+// Read implements Reader. A recording that ends before the frame count its
+// container declares returns an error matching both ErrEndOfStream and
+// ErrEndedEarly; a frame over the pixel limit one matching ErrTooLarge.
 func (v *Video) Read(dst *gocv.Mat) (time.Duration, error) {
 	if v.cap == nil {
 		return 0, fmt.Errorf("read %s: %w", v.name, errReaderClosed)
@@ -85,29 +112,59 @@ func (v *Video) Read(dst *gocv.Mat) (time.Duration, error) {
 		v.first = gocv.Mat{}
 	} else {
 		start := time.Now()
-		if !v.cap.read(dst) || dst.Empty() {
-			if !v.info.Live {
-				return 0, fmt.Errorf("read %s: %w", v.name, ErrEndOfStream)
-			}
-			if v.readTimeout > 0 && time.Since(start) >= v.readTimeout*9/10 {
-				return 0, fmt.Errorf("read %s: no frame within read_timeout %v (stalled): %w", v.name, v.readTimeout, ErrDisconnected)
-			}
-			return 0, fmt.Errorf("read %s: stream ended or broke off: %w", v.name, ErrDisconnected)
+		ok, err := v.cap.read(dst)
+		if err != nil {
+			return 0, fmt.Errorf("read %s: %w", v.name, err)
+		}
+		if !ok || dst.Empty() {
+			return 0, v.endErr(time.Since(start))
+		}
+		// OpenCV 4.6's FFmpeg backend keeps a stream's first frame size (it
+		// converts later frames to it); other backends and versions may not.
+		if err := checkSize(dst.Cols(), dst.Rows(), v.maxPixels); err != nil {
+			return 0, fmt.Errorf("read %s: %w", v.name, err)
 		}
 	}
-	pts := v.timestamp()
+	pts, err := v.timestamp()
+	if err != nil {
+		return 0, fmt.Errorf("read %s: %w", v.name, err)
+	}
 	v.seq++
 	return pts, nil
 }
 
+// endErr says why no frame came after a read that took took.
+func (v *Video) endErr(took time.Duration) error {
+	switch {
+	case !v.info.Live && endedEarly(v.seq, int64(v.info.Frames)):
+		return fmt.Errorf("read %s: %w after %d of the %d frames its container declares: %w",
+			v.name, ErrEndedEarly, v.seq, v.info.Frames, ErrEndOfStream)
+	case !v.info.Live:
+		return fmt.Errorf("read %s: %w", v.name, ErrEndOfStream)
+	case v.readTimeout > 0 && took >= v.readTimeout*9/10:
+		return fmt.Errorf("read %s: no frame within read_timeout %v (stalled): %w", v.name, v.readTimeout, ErrDisconnected)
+	}
+	return fmt.Errorf("read %s: stream ended or broke off: %w", v.name, ErrDisconnected)
+}
+
+// endedEarly reports whether a recording that declared declared frames and
+// delivered read is missing more than containers get wrong: some estimate
+// the count from the duration, so up to max(2, 1%) missing frames pass.
+func endedEarly(read, declared int64) bool {
+	return declared > 0 && float64(declared-read) > max(2, 0.01*float64(declared))
+}
+
 // timestamp prefers the frame index over the container clock for files with
 // a known rate (exact and monotonic), and the decoder's clock otherwise.
-func (v *Video) timestamp() time.Duration {
+func (v *Video) timestamp() (time.Duration, error) {
 	var pts time.Duration
 	if v.info.FPS > 0 && !v.info.Live {
 		pts = time.Duration(float64(v.seq) / v.info.FPS * float64(time.Second))
 	} else {
-		ms := v.cap.get(gocv.VideoCapturePosMsec)
+		ms, err := v.cap.get(gocv.VideoCapturePosMsec)
+		if err != nil {
+			return 0, err
+		}
 		if !(ms >= 0 && ms < 1e12) { // some streams (HTTP MJPEG) have no clock
 			ms = 0
 		}
@@ -117,18 +174,23 @@ func (v *Video) timestamp() time.Duration {
 		}
 	}
 	v.last = pts
-	return pts
+	return pts, nil
 }
 
-// Close implements Reader.
+// Close implements Reader. It also logs FFmpeg problems still being summed.
 func (v *Video) Close() error {
 	if v.first.Ptr() != nil {
 		_ = v.first.Close()
 		v.first = gocv.Mat{}
 	}
+	var err error
 	if v.cap != nil {
-		v.cap.close()
+		err = v.cap.close()
 		v.cap = nil
+		flushFFmpegLog()
+	}
+	if err != nil {
+		return fmt.Errorf("close %s: %w", v.name, err)
 	}
 	return nil
 }

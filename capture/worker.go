@@ -12,6 +12,7 @@ import (
 	"gocv.io/x/gocv"
 
 	"tallyd/capture/mailbox"
+	"tallyd/internal/repeat"
 )
 
 // Pace says how a recorded or generated source is replayed.
@@ -39,15 +40,22 @@ func ParsePace(s string) (Pace, error) {
 // Stats is a worker's health and counters.
 type Stats struct {
 	Source string
-	// State is "running", "ended", "failed" or "stopped"; while a live
-	// source read through a LiveReader runs, its link state instead:
-	// "connecting", "up", "backing_off" (or "failed").
-	State string
-	Err   string // last error when failed; why a live source is not up
+	// State is StateRunning, StateEnded, StateStopped or StateFailed; while
+	// a live source (a LiveReader) runs, its link state instead (see State).
+	State State
+	// Err says why the source failed, or why a live source is not up; ""
+	// when there is no error.
+	Err string
 	// Link is a live source's connection state (zero for other sources).
-	Link           Link
-	Read           int64 // frames decoded
-	DroppedRate    int64 // frames skipped to hold the target rate
+	Link Link
+	Read int64 // frames decoded
+	// Declared is the frame count the source declared when it was opened
+	// (files: the container's count, folders, scenes); 0 when unknown or live.
+	Declared int64
+	// EndedEarly is set when a recording ended after fewer frames than
+	// Declared, beyond what containers get wrong: a cut or damaged file.
+	EndedEarly     bool
+	DroppedForRate int64 // frames dropped to hold the target rate
 	DroppedMailbox int64 // frames replaced by a newer one before the consumer took them
 	DroppedPrep    int64 // frames whose detector input could not be prepared
 	LastFrame      time.Time
@@ -62,7 +70,7 @@ type Lost struct {
 }
 
 // Dropped is every frame that was read but not handed on.
-func (s Stats) Dropped() int64 { return s.DroppedRate + s.DroppedMailbox + s.DroppedPrep }
+func (s Stats) Dropped() int64 { return s.DroppedForRate + s.DroppedMailbox + s.DroppedPrep }
 
 // Worker reads one source on its own goroutine and posts frames to Out.
 type Worker struct {
@@ -75,7 +83,8 @@ type Worker struct {
 	log    *slog.Logger
 	// Prepare, when set before Run, is called on each frame that will be
 	// handed on (after rate dropping), on the worker's goroutine. An error
-	// drops the frame and is counted and logged.
+	// drops the frame and is counted, and logged once per period with the
+	// count.
 	Prepare func(*Frame) error
 	// OnLost, when set before Run, is called on the worker's goroutine each
 	// time a live source (a LiveReader) loses its connection: after the last
@@ -83,26 +92,33 @@ type Worker struct {
 	// It must not block. Tracks and zone stays of the source should be closed.
 	OnLost func(Lost)
 
-	prepErrs atomic.Int64
+	prepErrs *repeat.Reporter
 
-	read, dropRate atomic.Int64
-	lastFrame      atomic.Int64 // unix nanos
-	mu             sync.Mutex
-	state, err     string
+	read, dropForRate atomic.Int64
+	lastFrame         atomic.Int64 // unix nanos
+	endedEarly        atomic.Bool
+	mu                sync.Mutex
+	state             State
+	err               string
 }
 
 // NewWorker makes a worker for an opened source. target is the processing
 // rate (0: every frame).
 func NewWorker(id string, src Reader, info Info, pace Pace, target float64, log *slog.Logger) *Worker {
+	if log == nil {
+		log = slog.New(slog.DiscardHandler)
+	}
+	log = log.With("source", id)
 	return &Worker{
-		ID:     id,
-		Out:    mailbox.New(func(f *Frame) { f.Close() }),
-		src:    src,
-		info:   info,
-		pace:   pace,
-		target: target,
-		log:    log.With("source", id),
-		state:  "running",
+		ID:       id,
+		Out:      mailbox.New(func(f *Frame) { f.Close() }),
+		src:      src,
+		info:     info,
+		pace:     pace,
+		target:   target,
+		log:      log,
+		prepErrs: repeat.New(log, "preparing frames failed; frames dropped", 0).AtLevel(slog.LevelError),
+		state:    StateRunning,
 	}
 }
 
@@ -112,12 +128,13 @@ func (w *Worker) Run(ctx context.Context) (err error) {
 	defer func() {
 		w.Out.Close()
 		_ = w.src.Close()
-		state := "ended"
+		w.prepErrs.Flush()
+		state := StateEnded
 		switch {
 		case ctx.Err() != nil:
-			state, err = "stopped", nil
+			state, err = StateStopped, nil
 		case err != nil:
-			state = "failed"
+			state = StateFailed
 		}
 		w.setState(state, err)
 	}()
@@ -150,6 +167,10 @@ func (w *Worker) Run(ctx context.Context) (err error) {
 			_ = m.Close()
 			switch {
 			case errors.Is(rerr, ErrEndOfStream):
+				if errors.Is(rerr, ErrEndedEarly) {
+					w.endedEarly.Store(true)
+					w.log.Warn("recording ended early", "read", w.read.Load(), "declared", w.info.Frames, "err", rerr)
+				}
 				return nil
 			case live != nil && errors.Is(rerr, ErrDisconnected):
 				if w.OnLost != nil {
@@ -170,7 +191,7 @@ func (w *Worker) Run(ctx context.Context) (err error) {
 			// Hold the target rate on the source clock; a tenth of a period
 			// of slack absorbs timestamp jitter.
 			if pts+period/10 < nextDue {
-				w.dropRate.Add(1)
+				w.dropForRate.Add(1)
 				_ = m.Close()
 				continue
 			}
@@ -182,9 +203,7 @@ func (w *Worker) Run(ctx context.Context) (err error) {
 		f := &Frame{Source: w.ID, Seq: s, PTS: pts, Captured: now, Mat: m, Conn: conn}
 		if w.Prepare != nil {
 			if perr := w.Prepare(f); perr != nil {
-				if w.prepErrs.Add(1) == 1 {
-					w.log.Error("preparing frame failed; frame dropped", "seq", s, "err", perr)
-				}
+				w.prepErrs.Note(perr, "seq", s)
 				f.Close()
 				continue
 			}
@@ -213,10 +232,10 @@ func (w *Worker) Run(ctx context.Context) (err error) {
 	return nil
 }
 
-func (w *Worker) setState(state string, err error) {
+func (w *Worker) setState(state State, err error) {
 	w.mu.Lock()
 	defer w.mu.Unlock()
-	w.state = state
+	w.state, w.err = state, ""
 	if err != nil {
 		w.err = err.Error()
 	}
@@ -229,14 +248,17 @@ func (w *Worker) Stats() Stats {
 	w.mu.Unlock()
 	if live, ok := w.src.(LiveReader); ok {
 		st.Link = live.Link()
-		if st.State == "running" {
-			st.State, st.Err = string(st.Link.State), st.Link.Reason
+		if st.State == StateRunning {
+			st.State, st.Err = st.Link.State, st.Link.Reason
 		}
+	} else {
+		st.Declared = int64(w.info.Frames)
 	}
 	st.Read = w.read.Load()
-	st.DroppedRate = w.dropRate.Load()
+	st.EndedEarly = w.endedEarly.Load()
+	st.DroppedForRate = w.dropForRate.Load()
 	st.DroppedMailbox = w.Out.Dropped()
-	st.DroppedPrep = w.prepErrs.Load()
+	st.DroppedPrep = w.prepErrs.Total()
 	if ns := w.lastFrame.Load(); ns != 0 {
 		st.LastFrame = time.Unix(0, ns)
 	}

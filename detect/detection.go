@@ -6,6 +6,10 @@ package detect
 
 import "math"
 
+// DefaultClass is the class name given to the boxes of detectors that do not
+// classify (background subtraction, a detections file without classes).
+const DefaultClass = "person"
+
 // Box is an axis-aligned rectangle in source pixels: X1,Y1 is the top-left
 // corner and X2,Y2 the bottom-right one (exclusive edges, as in the
 // MOTChallenge format where right = left + width).

@@ -96,8 +96,8 @@ func TestEngineAgreesWithTruthWithoutBand(t *testing.T) {
 // -update to rewrite testdata/engine_events.golden.jsonl after a deliberate
 // change.
 func TestGoldenEvents(t *testing.T) {
-	lines := []LineRule{{Name: "door", A: Point{0, 100}, B: Point{200, 100}, Band: 4}}
-	zones := []ZoneRule{{Name: "desk", Polygon: []Point{{50, 150}, {150, 150}, {150, 250}, {50, 250}}, Band: 4, DwellThreshold: 300 * time.Millisecond}}
+	lines := []LineRule{{Name: "door", A: Point{0, 100}, B: Point{200, 100}, BandPx: 4}}
+	zones := []ZoneRule{{Name: "desk", Polygon: []Point{{50, 150}, {150, 150}, {150, 250}, {50, 250}}, BandPx: 4, DwellThreshold: 300 * time.Millisecond}}
 	e := NewEngine(testMeta, lines, zones)
 	var buf bytes.Buffer
 	enc := json.NewEncoder(&buf)
@@ -181,8 +181,8 @@ func BenchmarkEngineStep(b *testing.B) {
 	var lines []LineRule
 	var zones []ZoneRule
 	for i := range 4 {
-		lines = append(lines, LineRule{Name: "l" + itoa(i), A: Point{0, 100 + float64(i)*200}, B: Point{1920, 150 + float64(i)*200}, Band: 5})
-		zones = append(zones, ZoneRule{Name: "z" + itoa(i), Polygon: regular(Point{300 + float64(i)*400, 500}, 180, 0.3, 8), Band: 5, DwellThreshold: 5 * time.Second})
+		lines = append(lines, LineRule{Name: "l" + itoa(i), A: Point{0, 100 + float64(i)*200}, B: Point{1920, 150 + float64(i)*200}, BandPx: 5})
+		zones = append(zones, ZoneRule{Name: "z" + itoa(i), Polygon: regular(Point{300 + float64(i)*400, 500}, 180, 0.3, 8), BandPx: 5, DwellThreshold: 5 * time.Second})
 	}
 	e := NewEngine(testMeta, lines, zones)
 	const nTracks = 50

@@ -18,13 +18,17 @@ const SpecVersion = "1.0"
 // ContentType is the datacontenttype of every event: data is a JSON object.
 const ContentType = "application/json"
 
-// Event kinds, as carried in Data.Kind and in the last NATS subject token.
+// Kind is what happened: the last NATS subject token and Data.Kind.
+type Kind string
+
+// Event kinds. A line rule emits in and out; a zone rule enter, exit and
+// dwell. Totals count them under the same names.
 const (
-	KindIn    = "in"    // line crossed from its left to its right side
-	KindOut   = "out"   // line crossed from its right to its left side
-	KindEnter = "enter" // track came inside a zone
-	KindExit  = "exit"  // track left a zone, or its stay was closed
-	KindDwell = "dwell" // track stayed inside a zone for the rule's threshold
+	KindIn    Kind = "in"    // line crossed from its left to its right side
+	KindOut   Kind = "out"   // line crossed from its right to its left side
+	KindEnter Kind = "enter" // track came inside a zone
+	KindExit  Kind = "exit"  // track left a zone, or its stay was closed
+	KindDwell Kind = "dwell" // track stayed inside a zone for the rule's threshold
 )
 
 // Event types (the CloudEvents "type" attribute).
@@ -36,16 +40,19 @@ const (
 	TypeZoneDwell = "tallyd.zone.dwell"
 )
 
-// Exit reasons carried in Data.Reason when a stay is closed by something
-// other than the track leaving the zone.
+// Reason says why a zone stay was closed by something other than the track
+// leaving the zone (Data.Reason of an exit).
+type Reason string
+
+// Exit reasons.
 const (
-	ReasonTrackEnded = "track_ended" // the tracker dropped the track while inside
-	ReasonStreamEnd  = "stream_end"  // the source reached its end
-	ReasonSourceLost = "source_lost" // the source went away
+	ReasonTrackEnded Reason = "track_ended" // the tracker dropped the track while inside
+	ReasonStreamEnd  Reason = "stream_end"  // the source reached its end
+	ReasonSourceLost Reason = "source_lost" // the source went away
 )
 
 // typeOfKind maps each kind to its CloudEvents type.
-var typeOfKind = map[string]string{
+var typeOfKind = map[Kind]string{
 	KindIn:    TypeLineIn,
 	KindOut:   TypeLineOut,
 	KindEnter: TypeZoneEnter,
@@ -70,7 +77,7 @@ type Data struct {
 	Site       string     `json:"site"`
 	Source     string     `json:"source"`
 	Rule       string     `json:"rule"`
-	Kind       string     `json:"kind"` // in|out|enter|exit|dwell
+	Kind       Kind       `json:"kind"` // in|out|enter|exit|dwell
 	TrackID    int64      `json:"track_id"`
 	Class      string     `json:"class"`
 	SourceTime float64    `json:"source_time_s"` // seconds since stream start
@@ -78,7 +85,7 @@ type Data struct {
 	Box        [4]float64 `json:"box"`                   // x1,y1,x2,y2 in source pixels
 	DwellS     *float64   `json:"dwell_s,omitempty"`     // exit and dwell: time inside so far
 	Occupancy  *int       `json:"occupancy,omitempty"`   // enter and exit: tracks inside after the frame
-	Reason     string     `json:"reason,omitempty"`      // exit: why the stay was closed, if not by leaving
+	Reason     Reason     `json:"reason,omitempty"`      // exit: why the stay was closed, if not by leaving
 	ThresholdS *float64   `json:"threshold_s,omitempty"` // dwell: the rule's threshold
 	// FrameAgeMS is how old the frame behind the event was when the event was
 	// published (capture to publish), in milliseconds. Not part of the id.
@@ -91,9 +98,9 @@ func EventSource(site, source string) string { return "/tallyd/" + site + "/" + 
 // EventID is the stable id of an event: the hex of a SHA-256 over its
 // identifying fields, cut to 128 bits. The same input always gives the same
 // id, so a replayed stream can be de-duplicated downstream.
-func EventID(site, source, rule, kind string, trackID, frame int64) string {
+func EventID(site, source, rule string, kind Kind, trackID, frame int64) string {
 	h := sha256.New()
-	for _, s := range []string{site, source, rule, kind} {
+	for _, s := range []string{site, source, rule, string(kind)} {
 		var n [8]byte
 		binary.BigEndian.PutUint64(n[:], uint64(len(s)))
 		h.Write(n[:])
@@ -110,7 +117,7 @@ func EventID(site, source, rule, kind string, trackID, frame int64) string {
 // "<prefix>.<site>.<source>.<rule>.<kind>". Tokens are not checked here; the
 // bus package refuses to publish on an invalid subject.
 func (e Event) NATSSubject(prefix string) string {
-	return strings.Join([]string{prefix, e.Data.Site, e.Data.Source, e.Data.Rule, e.Data.Kind}, ".")
+	return strings.Join([]string{prefix, e.Data.Site, e.Data.Source, e.Data.Rule, string(e.Data.Kind)}, ".")
 }
 
 // ErrMalformed is wrapped by every error Parse returns.
@@ -181,7 +188,7 @@ func Parse(b []byte) (Event, error) {
 			return Event{}, &AttrError{"time", fmt.Sprintf("not RFC 3339: %q", ts)}
 		}
 	}
-	wantKind := ""
+	var wantKind Kind
 	for k, t := range typeOfKind {
 		if t == ev.Type {
 			wantKind = k

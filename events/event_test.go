@@ -6,6 +6,9 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"tallyd/detect"
+	"tallyd/track"
 )
 
 // validJSON is a well-formed exit event as the engine writes it.
@@ -189,4 +192,22 @@ func FuzzParse(f *testing.F) {
 			t.Fatalf("not a fixed point:\n%s\n%s", once, twice)
 		}
 	})
+}
+
+// TestEventNumbersReadable: times are written to the millisecond and boxes
+// to a tenth of a pixel, not as binary fractions such as 42.773999999 or
+// 301.40000000000003.
+func TestEventNumbersReadable(t *testing.T) {
+	e := NewEngine(Meta{Site: "s", Source: "c", Start: time.Date(2026, 6, 1, 8, 0, 0, 0, time.UTC)}, nil, nil)
+	ts := 42785571142 * time.Nanosecond // frame 427 at 9.98 fps
+	tr := track.Track{ID: 3, Class: "person", Box: detect.Box{X1: 301.40000000000003, Y1: 170.04999, X2: 325.123456, Y2: 221.99999}}
+	b, err := json.Marshal(e.event("gate", KindIn, tr, 427, ts))
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, want := range []string{`"time":"2026-06-01T08:00:42.786Z"`, `"source_time_s":42.786`, `"box":[301.4,170,325.1,222]`} {
+		if !strings.Contains(string(b), want) {
+			t.Errorf("event %s lacks %s", b, want)
+		}
+	}
 }

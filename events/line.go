@@ -15,9 +15,9 @@ type LineRule struct {
 	A, B    Point
 	Classes []string // empty: all classes
 	Anchor  Anchor
-	// Band is the hysteresis half-width in pixels: an anchor closer than
-	// Band to the line through A and B keeps the side it had before.
-	Band float64
+	// BandPx is the hysteresis half-width in pixels: an anchor closer than
+	// BandPx to the line through A and B keeps the side it had before.
+	BandPx float64
 }
 
 // lineState is the per-track side memory of one line rule.
@@ -42,18 +42,18 @@ func newLineState(r LineRule) *lineState {
 		filter: newClassFilter(r.Classes),
 		length: math.Hypot(r.B.X-r.A.X, r.B.Y-r.A.Y),
 		tracks: make(map[int64]*lineTrack),
-		totals: Totals{Kind: TotalsCrossing},
+		totals: Totals{Kind: RuleLine},
 	}
 }
 
-// side is +1 or -1 when p is farther than Band from the line, else 0. A
+// side is +1 or -1 when p is farther than BandPx from the line, else 0. A
 // degenerate line (A == B) has no sides.
 func (l *lineState) side(p Point) int {
 	if l.length == 0 {
 		return 0
 	}
 	d := Cross(l.rule.A, l.rule.B, p) / l.length
-	if math.Abs(d) <= math.Max(l.rule.Band, 0) {
+	if math.Abs(d) <= math.Max(l.rule.BandPx, 0) {
 		return 0
 	}
 	return sign(d)

@@ -62,7 +62,7 @@ func ys(x float64, y ...float64) []Point {
 }
 
 // gate runs left to right on screen at y=100; "in" is downwards.
-var gate = LineRule{Name: "gate", A: Point{0, 100}, B: Point{200, 100}, Band: 5}
+var gate = LineRule{Name: "gate", A: Point{0, 100}, B: Point{200, 100}, BandPx: 5}
 
 func TestLineCrossings(t *testing.T) {
 	tests := []struct {
@@ -121,7 +121,7 @@ func TestLineClassFilterAndTotals(t *testing.T) {
 	if got, want := describe(s.events), "1:gate:in:2 1:gate:out:3"; got != want {
 		t.Errorf("events %q, want %q", got, want)
 	}
-	if got, want := s.e.Totals()["gate"], (Totals{Kind: TotalsCrossing, In: 1, Out: 1}); got != want {
+	if got, want := s.e.Totals()["gate"], (Totals{Kind: RuleLine, In: 1, Out: 1}); got != want {
 		t.Errorf("totals %+v, want %+v", got, want)
 	}
 }

@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"maps"
+	"math"
 	"slices"
 	"time"
 
@@ -22,6 +23,9 @@ const (
 	AnchorCenter       Anchor = "center"
 	AnchorTopCenter    Anchor = "top-center"
 )
+
+// Anchors lists the anchors, the default first.
+var Anchors = []Anchor{AnchorBottomCenter, AnchorCenter, AnchorTopCenter}
 
 // ErrUnknownAnchor is returned by Anchor.Validate for a name it does not know.
 var ErrUnknownAnchor = errors.New("unknown anchor")
@@ -99,7 +103,7 @@ func (e *Engine) Step(frame int64, ts time.Duration, res track.Result) []Event {
 // example ReasonStreamEnd or ReasonSourceLost) and forgets all tracks, so
 // that a restarted tracker can reuse IDs. Each stay's dwell runs to the last
 // frame its track was seen.
-func (e *Engine) CloseAll(frame int64, ts time.Duration, reason string) []Event {
+func (e *Engine) CloseAll(frame int64, ts time.Duration, reason Reason) []Event {
 	var out []Event
 	for _, l := range e.lines {
 		clear(l.tracks)
@@ -123,7 +127,7 @@ func (e *Engine) Totals() map[string]Totals {
 }
 
 // event builds one event of the engine's source.
-func (e *Engine) event(rule, kind string, tr track.Track, frame int64, ts time.Duration) Event {
+func (e *Engine) event(rule string, kind Kind, tr track.Track, frame int64, ts time.Duration) Event {
 	b := tr.Box
 	return Event{
 		SpecVersion:     SpecVersion,
@@ -131,7 +135,7 @@ func (e *Engine) event(rule, kind string, tr track.Track, frame int64, ts time.D
 		Source:          EventSource(e.meta.Site, e.meta.Source),
 		Type:            typeOfKind[kind],
 		Subject:         rule,
-		Time:            e.meta.Start.Add(ts).UTC(),
+		Time:            e.meta.Start.Add(ts).UTC().Round(time.Millisecond),
 		DataContentType: ContentType,
 		Data: Data{
 			Site:       e.meta.Site,
@@ -140,9 +144,9 @@ func (e *Engine) event(rule, kind string, tr track.Track, frame int64, ts time.D
 			Kind:       kind,
 			TrackID:    tr.ID,
 			Class:      tr.Class,
-			SourceTime: ts.Seconds(),
+			SourceTime: *seconds(ts),
 			Frame:      frame,
-			Box:        [4]float64{b.X1, b.Y1, b.X2, b.Y2},
+			Box:        [4]float64{round1(b.X1), round1(b.Y1), round1(b.X2), round1(b.Y2)},
 		},
 	}
 }
@@ -194,8 +198,14 @@ func sortedKeys[V any](m map[int64]V) []int64 {
 	return slices.Sorted(maps.Keys(m))
 }
 
-// seconds converts a duration to a freshly allocated float64 of seconds.
+// seconds converts a duration to a freshly allocated float64 of seconds,
+// rounded to the millisecond: events carry times a reader can take in, not
+// binary fractions such as 42.773999999.
 func seconds(d time.Duration) *float64 {
-	s := d.Seconds()
+	s := d.Round(time.Millisecond).Seconds()
 	return &s
 }
+
+// round1 rounds a pixel coordinate to a tenth of a pixel, finer than any
+// detector's box and short to read.
+func round1(v float64) float64 { return math.Round(v*10) / 10 }

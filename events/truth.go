@@ -48,7 +48,7 @@ func TruthTotals(lines []LineRule, zones []ZoneRule, frames []TruthFrame) map[st
 }
 
 func truthLine(r LineRule, frames []TruthFrame) Totals {
-	t := Totals{Kind: TotalsCrossing}
+	t := Totals{Kind: RuleLine}
 	if r.A == r.B {
 		return t
 	}
@@ -99,7 +99,7 @@ func pathMeets(path []Point, a, b Point) bool {
 }
 
 func truthZone(r ZoneRule, frames []TruthFrame) Totals {
-	t := Totals{Kind: TotalsZone}
+	t := Totals{Kind: RuleZone}
 	f := newClassFilter(r.Classes)
 	last := map[int64]int{} // object ID → index of its last frame
 	for i, fr := range frames {
@@ -115,9 +115,9 @@ func truthZone(r ZoneRule, frames []TruthFrame) Totals {
 	}
 	stays := map[int64]*stay{}
 	closeStay := func(enter, end time.Duration) {
-		t.Exits++
+		t.Exit++
 		if r.DwellThreshold > 0 && end-enter >= r.DwellThreshold {
-			t.DwellAlerts++
+			t.Dwell++
 		}
 	}
 	for i, fr := range frames {
@@ -135,7 +135,7 @@ func truthZone(r ZoneRule, frames []TruthFrame) Totals {
 			switch {
 			case in && !st.inside:
 				st.inside, st.enter = true, fr.TS
-				t.Entries++
+				t.Enter++
 			case !in && st.inside:
 				st.inside = false
 				closeStay(st.enter, fr.TS)

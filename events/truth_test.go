@@ -62,7 +62,7 @@ func TestTruthLines(t *testing.T) {
 			rule.Classes = []string{"person"}
 		}
 		got := TruthTotals([]LineRule{rule}, nil, tc.frames)["gate"]
-		if want := (Totals{Kind: TotalsCrossing, In: tc.in, Out: tc.out}); got != want {
+		if want := (Totals{Kind: RuleLine, In: tc.in, Out: tc.out}); got != want {
 			t.Errorf("%s: %+v, want %+v", tc.name, got, want)
 		}
 	}
@@ -76,27 +76,27 @@ func TestTruthZones(t *testing.T) {
 		frames []TruthFrame
 		want   Totals
 	}{
-		{"enter and leave", path(1, "person", out, in, in, out), Totals{Entries: 1, Exits: 1, MaxOccupancy: 1}},
+		{"enter and leave", path(1, "person", out, in, in, out), Totals{Enter: 1, Exit: 1, MaxOccupancy: 1}},
 		// Stay from 0.1 s to the first frame outside at 0.4 s: 0.3 s.
-		{"long enough stay", path(1, "person", out, in, in, in, out), Totals{Entries: 1, Exits: 1, DwellAlerts: 1, MaxOccupancy: 1}},
+		{"long enough stay", path(1, "person", out, in, in, in, out), Totals{Enter: 1, Exit: 1, Dwell: 1, MaxOccupancy: 1}},
 		// Seen inside from the first frame and never leaving: the stay closes
 		// at its last sighting, 0.3 s after the first.
-		{"disappears inside", path(1, "person", in, in, in, in), Totals{Entries: 1, Exits: 1, DwellAlerts: 1, MaxOccupancy: 1}},
-		{"disappears inside early", path(1, "person", in, in, in), Totals{Entries: 1, Exits: 1, MaxOccupancy: 1}},
-		{"two stays", path(1, "person", in, out, in, out), Totals{Entries: 2, Exits: 2, MaxOccupancy: 1}},
+		{"disappears inside", path(1, "person", in, in, in, in), Totals{Enter: 1, Exit: 1, Dwell: 1, MaxOccupancy: 1}},
+		{"disappears inside early", path(1, "person", in, in, in), Totals{Enter: 1, Exit: 1, MaxOccupancy: 1}},
+		{"two stays", path(1, "person", in, out, in, out), Totals{Enter: 2, Exit: 2, MaxOccupancy: 1}},
 		{"never inside", path(1, "person", out, out), Totals{}},
 		{"two inside together", frames(
 			[]TruthObject{obj(1, "person", in)},
 			[]TruthObject{obj(1, "person", in), obj(2, "person", in)},
 			[]TruthObject{obj(2, "person", out)},
-		), Totals{Entries: 2, Exits: 2, MaxOccupancy: 2}},
+		), Totals{Enter: 2, Exit: 2, MaxOccupancy: 2}},
 		{"hand-over in one frame", frames(
 			[]TruthObject{obj(1, "person", out), obj(2, "person", in)},
 			[]TruthObject{obj(1, "person", in), obj(2, "person", out)},
-		), Totals{Entries: 2, Exits: 2, MaxOccupancy: 1}},
+		), Totals{Enter: 2, Exit: 2, MaxOccupancy: 1}},
 	}
 	for _, tc := range tests {
-		tc.want.Kind = TotalsZone
+		tc.want.Kind = RuleZone
 		if got := TruthTotals(nil, []ZoneRule{zone}, tc.frames)["yard"]; got != tc.want {
 			t.Errorf("%s: %+v, want %+v", tc.name, got, tc.want)
 		}

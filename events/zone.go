@@ -14,9 +14,9 @@ type ZoneRule struct {
 	Polygon []Point // simple polygon, vertices in order, closing edge implied
 	Classes []string
 	Anchor  Anchor
-	// Band is the hysteresis half-width in pixels: an anchor closer than
-	// Band to the polygon boundary keeps its previous inside/outside state.
-	Band           float64
+	// BandPx is the hysteresis half-width in pixels: an anchor closer than
+	// BandPx to the polygon boundary keeps its previous inside/outside state.
+	BandPx         float64
 	DwellThreshold time.Duration // 0: no dwell alerts
 }
 
@@ -45,13 +45,13 @@ func newZoneState(r ZoneRule) *zoneState {
 		rule:   r,
 		filter: newClassFilter(r.Classes),
 		tracks: make(map[int64]*zoneTrack),
-		totals: Totals{Kind: TotalsZone},
+		totals: Totals{Kind: RuleZone},
 	}
 }
 
-// classify is +1 inside, -1 outside, 0 within Band of the boundary.
+// classify is +1 inside, -1 outside, 0 within BandPx of the boundary.
 func (z *zoneState) classify(p Point) int {
-	if DistancePolygonBoundary(p, z.rule.Polygon) <= math.Max(z.rule.Band, 0) {
+	if DistancePolygonBoundary(p, z.rule.Polygon) <= math.Max(z.rule.BandPx, 0) {
 		return 0
 	}
 	if PointInPolygon(p, z.rule.Polygon) {
@@ -105,7 +105,7 @@ func (z *zoneState) observe(e *Engine, frame int64, ts time.Duration, tr track.T
 	case c > 0 && !st.inside:
 		st.inside, st.enterTS, st.dwellSent = true, ts, false
 		z.occupancy++
-		z.totals.Entries++
+		z.totals.Enter++
 		out = append(out, e.event(z.rule.Name, KindEnter, tr, frame, ts))
 	case c < 0 && st.inside:
 		return z.exit(e, frame, ts, tr, st, ts, "", out)
@@ -119,14 +119,14 @@ func (z *zoneState) observe(e *Engine, frame int64, ts time.Duration, tr track.T
 // exit closes a stay that lasted until `until`. A stay that reached the
 // threshold between two frames gets its dwell alert first, so that every
 // stay as long as the threshold yields exactly one alert.
-func (z *zoneState) exit(e *Engine, frame int64, ts time.Duration, tr track.Track, st *zoneTrack, until time.Duration, reason string, out []Event) []Event {
+func (z *zoneState) exit(e *Engine, frame int64, ts time.Duration, tr track.Track, st *zoneTrack, until time.Duration, reason Reason, out []Event) []Event {
 	d := max(until-st.enterTS, 0)
 	if z.rule.DwellThreshold > 0 && !st.dwellSent && d >= z.rule.DwellThreshold {
 		out = z.dwell(e, frame, ts, tr, st, d, out)
 	}
 	st.inside = false
 	z.occupancy--
-	z.totals.Exits++
+	z.totals.Exit++
 	ev := e.event(z.rule.Name, KindExit, tr, frame, ts)
 	ev.Data.DwellS = seconds(d)
 	ev.Data.Reason = reason
@@ -136,7 +136,7 @@ func (z *zoneState) exit(e *Engine, frame int64, ts time.Duration, tr track.Trac
 // dwell emits the stay's one dwell alert.
 func (z *zoneState) dwell(e *Engine, frame int64, ts time.Duration, tr track.Track, st *zoneTrack, d time.Duration, out []Event) []Event {
 	st.dwellSent = true
-	z.totals.DwellAlerts++
+	z.totals.Dwell++
 	ev := e.event(z.rule.Name, KindDwell, tr, frame, ts)
 	ev.Data.DwellS = seconds(d)
 	ev.Data.ThresholdS = seconds(z.rule.DwellThreshold)
@@ -144,7 +144,7 @@ func (z *zoneState) dwell(e *Engine, frame int64, ts time.Duration, tr track.Tra
 }
 
 // closeAll exits every track inside, in ID order, and forgets all tracks.
-func (z *zoneState) closeAll(e *Engine, frame int64, ts time.Duration, reason string, out []Event) []Event {
+func (z *zoneState) closeAll(e *Engine, frame int64, ts time.Duration, reason Reason, out []Event) []Event {
 	first := len(out)
 	for _, id := range sortedKeys(z.tracks) {
 		st := z.tracks[id]

@@ -11,7 +11,7 @@ import (
 )
 
 // yard is the square 100..300 on both axes.
-var yard = ZoneRule{Name: "yard", Polygon: []Point{{100, 100}, {300, 100}, {300, 300}, {100, 300}}, Band: 5}
+var yard = ZoneRule{Name: "yard", Polygon: []Point{{100, 100}, {300, 100}, {300, 300}, {100, 300}}, BandPx: 5}
 
 // zdescribe is describe plus the zone fields:
 // "frame:kind:track[ occ=N][ dwell=S][ thr=S][ reason=R]".
@@ -29,7 +29,7 @@ func zdescribe(evs []Event) string {
 			s += fmt.Sprintf(",thr=%g", *e.Data.ThresholdS)
 		}
 		if e.Data.Reason != "" {
-			s += ",reason=" + e.Data.Reason
+			s += ",reason=" + string(e.Data.Reason)
 		}
 		parts = append(parts, s)
 	}
@@ -139,7 +139,7 @@ func TestZoneOccupancyIsPerFrame(t *testing.T) {
 	if got := zdescribe(s.events); got != want {
 		t.Errorf("events\n%q\nwant\n%q", got, want)
 	}
-	if got, want := s.e.Totals()["yard"], (Totals{Kind: TotalsZone, Entries: 3, Exits: 1, MaxOccupancy: 2}); got != want {
+	if got, want := s.e.Totals()["yard"], (Totals{Kind: RuleZone, Enter: 3, Exit: 1, MaxOccupancy: 2}); got != want {
 		t.Errorf("totals %+v, want %+v", got, want)
 	}
 }
@@ -174,13 +174,13 @@ func TestCloseAll(t *testing.T) {
 		t.Errorf("after CloseAll %q, want %q", got, want)
 	}
 	tot := s.e.Totals()
-	if want := (Totals{Kind: TotalsZone, Entries: 3, Exits: 2, MaxOccupancy: 2}); tot["yard"] != want {
+	if want := (Totals{Kind: RuleZone, Enter: 3, Exit: 2, MaxOccupancy: 2}); tot["yard"] != want {
 		t.Errorf("yard totals %+v, want %+v", tot["yard"], want)
 	}
-	if want := (Totals{Kind: TotalsZone, Entries: 3, Exits: 2, DwellAlerts: 1, MaxOccupancy: 2}); tot["yard-2"] != want {
+	if want := (Totals{Kind: RuleZone, Enter: 3, Exit: 2, Dwell: 1, MaxOccupancy: 2}); tot["yard-2"] != want {
 		t.Errorf("yard-2 totals %+v, want %+v", tot["yard-2"], want)
 	}
-	if want := (Totals{Kind: TotalsCrossing}); tot["gate"] != want {
+	if want := (Totals{Kind: RuleLine}); tot["gate"] != want {
 		t.Errorf("gate totals %+v, want %+v", tot["gate"], want)
 	}
 }

@@ -35,6 +35,12 @@ report=out/bench.txt
   else
     echo "vtest.avi: skipped (../shared/footage absent)"
   fi
+  echo
+  echo "## Counting on every generated seed (go test -tags allseeds; make test runs one seed)"
+  echo
+  go test -count=1 -tags allseeds -v -run 'TestTruthBoxesCountExactly|TestMotionDetectorWithinFivePercent' ./cmd/tallyd/ 2>&1 \
+    | grep -E '^(=== RUN|--- |ok|FAIL)|counted .* truth' | grep -v '=== RUN' | sed 's/^ *//'
+  go test -count=1 -tags allseeds -v -run 'TestFaultStudy' ./track/eval/ 2>&1 | grep -v '^=== RUN' | sed 's/^ *//'
 } | tee "$report"
 echo "written to $report"
 

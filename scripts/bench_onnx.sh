@@ -24,15 +24,18 @@ raw=out/bench_onnx.raw.txt
 # One package, run in sequence: never two heavy runs at once on 2 cores.
 # ONNX Runtime alone and its end-to-end replay back to back, so that both
 # see the same machine; then OpenCV; then the small stages.
+# The end-to-end replay lives with the pipeline (internal/pipeline).
 go test -c -o bin/onnx.test ./detect/onnx/
+go test -c -o bin/pipeline.test ./internal/pipeline/
 bench() { (cd detect/onnx && ../../bin/onnx.test -test.run '^$' -test.timeout 30m "$@") >>"$raw" 2>&1; }
+replay() { (cd internal/pipeline && ../../bin/pipeline.test -test.run '^$' -test.timeout 30m "$@") >>"$raw" 2>&1; }
 bench -test.bench 'InferORT$' -test.benchtime 300x
-bench -test.bench 'Replay/ort' -test.benchtime 1x
+replay -test.bench 'Replay/ort' -test.benchtime 1x
 bench -test.bench 'InferOpenCV$' -test.benchtime 100x
-bench -test.bench 'Replay/opencv' -test.benchtime 1x
+replay -test.bench 'Replay/opencv' -test.benchtime 1x
 bench -test.bench 'DetectORT$' -test.benchtime 300x
 bench -test.bench 'Prepare$|Postprocess$' -test.benchtime 2s
-rm -f bin/onnx.test
+rm -f bin/onnx.test bin/pipeline.test
 
 # metric NAME UNIT: the value of UNIT on the benchmark line starting with NAME.
 metric() {

@@ -43,6 +43,11 @@ elif [ ! -f "$ORT_CACHE/libonnxruntime.so.1" ]; then
   mv "$tmp/$ORT_MEMBER" "$ORT_CACHE/libonnxruntime.so.1"
 fi
 
-# 3. Go modules.
+# 3. Go modules, and the linter make lint runs (pinned).
 go mod download
+STATICCHECK_VERSION=v0.8.2
+if [ ! -x .cache/bin/staticcheck ] || ! .cache/bin/staticcheck -version 2>/dev/null | grep -q "${STATICCHECK_VERSION#v}"; then
+  say "installing staticcheck ${STATICCHECK_VERSION} into .cache/bin"
+  GOBIN="$PWD/.cache/bin" go install "honnef.co/go/tools/cmd/staticcheck@${STATICCHECK_VERSION}"
+fi
 say "ok"

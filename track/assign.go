@@ -1,338 +1,349 @@
 package track
 
 import (
+	"context"
+	"errors"
 	"fmt"
 	"math"
-	"slices"
 )
 
-// Assign pairs the rows of a cost matrix with its columns (at most one
-// column per row and one row per column) so that the total saving over
-// maxCost is largest, that is it minimises the sum of cost[i][j] − maxCost
-// over the matched pairs. Only pairs whose cost is below maxCost are ever
-// matched: a pair at or above it would save nothing, so its row and column
-// are left unmatched instead. This is the gated assignment trackers use to
-// link tracks to detections (with cost 1 − IoU, maxCost 1 − minimum IoU; a
-// row or column left unmatched costs maxCost/2 as with the cost_limit of the
-// LAPJV solver used by SORT and ByteTrack).
+// The assignment solver: one-to-one matchings of rows to columns with the
+// largest total weight. ByteTrack solves it to link tracks to detections
+// and package eval to match tracker boxes with ground truth; it is the one
+// solver both use.
 //
-// With maxCost = +Inf there is no gate: the result is a matching of the
-// largest possible size (min(rows, columns) when every cost is finite) and,
-// among those, of the least total cost, the classic rectangular assignment.
-// Costs that are NaN or infinite are never matched, whatever maxCost is.
+// An Assigner takes the pairs that may be linked as a list, each with a
+// positive weight; a pair not in the list is never linked. That is the
+// gated assignment a tracker needs (cost 1 − IoU under a limit becomes the
+// weight limit − cost), and the matching of the official MOTChallenge
+// evaluator (TrackEval), which maximises a similarity matrix whose entries
+// below the threshold are zeroed and then drops the chosen pairs of weight
+// 0. A maximum-weight matching splits exactly over the connected
+// components of the graph of pairs, so each component is solved on its own
+// with the Hungarian method (Kuhn 1955, Munkres 1957) in its
+// shortest-augmenting-path form, O(n²·m) for a component of n ≤ m rows and
+// columns: most components are a single pair, the rest a few boxes in a
+// crowd.
+
+// MaxAssignCells bounds the work AssignContext takes on: a group of rows
+// and columns linked by pairs is solved as a dense matrix of rows × columns
+// cells (16 bytes each, time growing with rows² × columns), and one larger
+// than this is refused. 8,192 × 8,192 fits.
+const MaxAssignCells = 1 << 26
+
+// ErrAssignTooLarge is wrapped by the error AssignContext returns for a
+// group of linked rows and columns beyond MaxAssignCells.
+var ErrAssignTooLarge = errors.New("assignment too large")
+
+// errStopped reports that done was closed; AssignContext turns it into
+// ctx.Err().
+var errStopped = errors.New("stopped")
+
+// Pair is a row and a column that an assignment may link, worth Weight.
+// Only a positive, finite weight makes a pair eligible.
+type Pair struct {
+	Row, Col int32
+	Weight   float64
+}
+
+// eligible reports whether a pair may be linked (false for NaN).
+func (p *Pair) eligible() bool { return p.Weight > 0 && p.Weight <= math.MaxFloat64 }
+
+// Assigner solves assignment problems, reusing its buffers from one call to
+// the next so that a tracker allocates nothing per frame once warm. The
+// zero value is ready; an Assigner is not safe for concurrent use.
+type Assigner struct {
+	parent   []int32 // union-find over rows (0..nr-1) and columns (nr..nr+nc-1)
+	compID   []int32 // per union-find root: component number, or -1
+	compEnd  []int32 // per component: end offset of its pairs in sorted
+	sorted   []Pair
+	rowLocal []int32 // per row: index within the current component, or -1
+	colLocal []int32
+	rows     []int32 // rows of the current component, by local index
+	cols     []int32
+	dense    []float64
+	assigned []int
+	h        hungarian
+}
+
+// Assign sets rowTo[r] to the column linked to row r, or -1, choosing among
+// pairs the one-to-one assignment of largest total weight. Pairs whose
+// weight is not positive and finite are ignored; a pair listed twice counts
+// with its last weight. rowTo must have length rows, and every pair must
+// lie within rows × cols; pairs is not modified.
 //
-// The matrix must be rectangular (all rows as long as the first); Assign
-// panics otherwise. It returns the pairs {row, column} ordered by row; nil
-// when nothing is matched. To maximise a score instead, use AssignMax.
-//
-// The solver splits the matrix into independent blocks (pairs linked by
-// gated-in entries) and solves each with the Hungarian method (Kuhn 1955,
-// Munkres 1957) in its shortest-augmenting-path form, O(n²m) per block.
-func Assign(cost [][]float64, maxCost float64) [][2]int {
-	n, m := dims(cost)
-	if n == 0 || m == 0 || math.IsNaN(maxCost) {
+// Among assignments of equal weight the choice depends only on the input:
+// the rows and the columns of a component are taken in the order they
+// first appear in pairs.
+func (a *Assigner) Assign(rows, cols int, pairs []Pair, rowTo []int32) {
+	a.assign(nil, 0, rows, cols, pairs, rowTo) // cannot fail without a limit or a stop
+}
+
+// AssignContext is Assign for problems of any size, such as files being
+// scored: it returns ctx.Err() soon after ctx is done, and an error
+// wrapping ErrAssignTooLarge when a group of linked rows and columns
+// exceeds MaxAssignCells. After an error rowTo holds a partial assignment.
+func (a *Assigner) AssignContext(ctx context.Context, rows, cols int, pairs []Pair, rowTo []int32) error {
+	err := a.assign(ctx.Done(), MaxAssignCells, rows, cols, pairs, rowTo)
+	if err == errStopped {
+		return ctx.Err()
+	}
+	return err
+}
+
+// assign is Assign stopping when done is closed (never when nil) and
+// refusing components of more than limit cells (any size when 0).
+func (a *Assigner) assign(done <-chan struct{}, limit, rows, cols int, pairs []Pair, rowTo []int32) error {
+	for i := range rowTo {
+		rowTo[i] = -1
+	}
+	n := rows + cols
+	a.parent = grow(a.parent, n)
+	for i := range a.parent {
+		a.parent[i] = int32(i)
+	}
+	eligible := 0
+	for i := range pairs {
+		if p := &pairs[i]; p.eligible() {
+			eligible++
+			a.union(p.Row, int32(rows)+p.Col)
+		}
+	}
+	if eligible == 0 {
 		return nil
 	}
-	// Internally every solver works on gains g ≤ 0: g < 0 marks a pair that
-	// may be matched and what matching it is worth, 0 a gated pair.
-	var a assigner
-	g := a.gains(n, m)
-	if !math.IsInf(maxCost, 1) {
-		for i, row := range cost {
-			for j, c := range row {
-				if c < maxCost && !math.IsInf(c, -1) { // false for NaN
-					g[i*m+j] = c - maxCost
-				}
+
+	// Number the components and sort the pairs by component (counting sort,
+	// keeping the input order inside a component).
+	a.compID = fill(grow(a.compID, n), -1)
+	a.compEnd = a.compEnd[:0]
+	for i := range pairs {
+		if p := &pairs[i]; p.eligible() {
+			root := a.find(p.Row)
+			if a.compID[root] < 0 {
+				a.compID[root] = int32(len(a.compEnd))
+				a.compEnd = append(a.compEnd, 0)
 			}
+			a.compEnd[a.compID[root]]++
 		}
-		return owned(a.solve(g, n, m))
+	}
+	var off int32
+	for k, cnt := range a.compEnd {
+		a.compEnd[k] = off // start offset for now
+		off += cnt
+	}
+	a.sorted = grow(a.sorted, eligible)
+	for i := range pairs {
+		if p := &pairs[i]; p.eligible() {
+			k := a.compID[a.find(p.Row)]
+			a.sorted[a.compEnd[k]] = *p
+			a.compEnd[k]++ // ends as the end offset
+		}
 	}
 
-	// No gate: shift every finite cost so far below 0 that one more matched
-	// pair always outweighs any difference in cost among the others.
-	lo, hi := math.Inf(1), math.Inf(-1)
-	for _, row := range cost {
-		for _, c := range row {
-			if !math.IsInf(c, 0) && !math.IsNaN(c) {
-				lo, hi = min(lo, c), max(hi, c)
-			}
+	a.rowLocal = fill(grow(a.rowLocal, rows), -1)
+	a.colLocal = fill(grow(a.colLocal, cols), -1)
+	var start int32
+	for _, end := range a.compEnd {
+		if err := a.solveComponent(done, limit, a.sorted[start:end], rowTo); err != nil {
+			return err
 		}
+		start = end
 	}
-	if lo > hi {
-		return nil // no finite cost
-	}
-	shift := hi + 1 + (hi-lo)*float64(min(n, m))
-	for i, row := range cost {
-		for j, c := range row {
-			if !math.IsInf(c, 0) && !math.IsNaN(c) {
-				g[i*m+j] = c - shift
-			}
-		}
-	}
-	return owned(a.solve(g, n, m))
+	return nil
 }
 
-// AssignMax pairs the rows of a score matrix with its columns (at most one
-// column per row and one row per column) so that the total score of the
-// matched pairs is largest. Only pairs whose score is at least minScore and
-// above 0 are ever matched; a row or column left unmatched scores 0. This is
-// the matching of the official MOT evaluation code (similarity matrix with
-// the entries below the threshold zeroed, maximised, then pairs scoring 0
-// dropped). Scores that are NaN or infinite are never matched.
-//
-// The matrix must be rectangular; AssignMax panics otherwise. It returns the
-// pairs {row, column} ordered by row; nil when nothing is matched.
-func AssignMax(score [][]float64, minScore float64) [][2]int {
-	n, m := dims(score)
-	if n == 0 || m == 0 || math.IsNaN(minScore) {
+// solveComponent assigns the rows and columns of one connected component.
+func (a *Assigner) solveComponent(done <-chan struct{}, limit int, ps []Pair, rowTo []int32) error {
+	if len(ps) == 1 {
+		rowTo[ps[0].Row] = ps[0].Col
 		return nil
 	}
-	var a assigner
-	g := a.gains(n, m)
-	for i, row := range score {
-		for j, s := range row {
-			if s >= minScore && s > 0 && !math.IsInf(s, 1) {
-				g[i*m+j] = -s
-			}
+	a.rows, a.cols = a.rows[:0], a.cols[:0]
+	for _, p := range ps {
+		if a.rowLocal[p.Row] < 0 {
+			a.rowLocal[p.Row] = int32(len(a.rows))
+			a.rows = append(a.rows, p.Row)
+		}
+		if a.colLocal[p.Col] < 0 {
+			a.colLocal[p.Col] = int32(len(a.cols))
+			a.cols = append(a.cols, p.Col)
 		}
 	}
-	return owned(a.solve(g, n, m))
-}
-
-// owned returns the pairs of a one-off assigner, nil when there are none.
-func owned(pairs [][2]int) [][2]int {
-	if len(pairs) == 0 {
-		return nil
+	nr, nc := len(a.rows), len(a.cols)
+	defer func() {
+		for _, r := range a.rows {
+			a.rowLocal[r] = -1
+		}
+		for _, c := range a.cols {
+			a.colLocal[c] = -1
+		}
+	}()
+	if limit > 0 && nr*nc > limit {
+		return fmt.Errorf("%w: %d rows and %d columns linked by eligible pairs, beyond the limit of %d cells",
+			ErrAssignTooLarge, nr, nc, limit)
 	}
-	return pairs
-}
-
-// dims returns the size of a matrix and panics if it is ragged.
-func dims(mat [][]float64) (n, m int) {
-	n = len(mat)
-	if n == 0 {
-		return 0, 0
+	a.dense = fill(grow(a.dense, nr*nc), 0)
+	for _, p := range ps {
+		a.dense[int(a.rowLocal[p.Row])*nc+int(a.colLocal[p.Col])] = p.Weight
 	}
-	m = len(mat[0])
-	for i, row := range mat {
-		if len(row) != m {
-			panic(fmt.Sprintf("track: assignment matrix is ragged: row 0 has %d columns, row %d has %d", m, i, len(row)))
+	a.assigned = grow(a.assigned, nr)
+	if !a.h.maximize(done, nr, nc, a.dense, a.assigned) {
+		return errStopped
+	}
+	for i, j := range a.assigned {
+		// A cell outside the pair list has weight 0 and is no link.
+		if j >= 0 && a.dense[i*nc+j] > 0 {
+			rowTo[a.rows[i]] = a.cols[j]
 		}
 	}
-	return n, m
+	return nil
 }
 
-// assigner solves gated assignment problems given as gains and keeps its
-// scratch space between calls, so that a tracker allocates nothing per
-// frame once warm. The zero value is ready to use.
-type assigner struct {
-	g     []float64 // the gains handed out by gains()
-	comp  []int     // union-find parents over rows 0..n-1 and columns n..n+m-1
-	root  []int     // per node: its component's root
-	start []int     // per component: offset into members
-	memb  []int     // rows then columns of each component, grouped
-	fill  []int
-	sub   []float64 // one component's sub-matrix
-	pairs [][2]int
-
-	// Hungarian method state.
-	u, v, minv []float64
-	p, way     []int
-	used       []bool
-	rowOf      []int
-}
-
-// gains returns a zeroed n×m row-major matrix owned by a.
-func (a *assigner) gains(n, m int) []float64 {
-	a.g = slices.Grow(a.g[:0], n*m)[:n*m]
-	clear(a.g)
-	return a.g
-}
-
-func (a *assigner) find(x int) int {
-	for a.comp[x] != x {
-		a.comp[x] = a.comp[a.comp[x]]
-		x = a.comp[x]
+func (a *Assigner) find(x int32) int32 {
+	for a.parent[x] != x {
+		a.parent[x] = a.parent[a.parent[x]]
+		x = a.parent[x]
 	}
 	return x
 }
 
-// solve maximises the total −g over matchings that use only pairs with
-// g < 0 (g is n×m, row-major, every entry ≤ 0, 0 meaning "no pair"). It
-// returns the pairs ordered by row in a slice owned by a.
-func (a *assigner) solve(g []float64, n, m int) [][2]int {
-	a.pairs = a.pairs[:0]
-	// Connected components of the bipartite graph of allowed pairs: pairs in
-	// different components never compete, so each is solved alone. In a
-	// tracker most components hold one track and one detection.
-	nodes := n + m
-	a.comp = slices.Grow(a.comp[:0], nodes)[:nodes]
-	for i := range a.comp {
-		a.comp[i] = i
+func (a *Assigner) union(x, y int32) {
+	rx, ry := a.find(x), a.find(y)
+	if rx != ry {
+		a.parent[rx] = ry
 	}
-	edges := 0
+}
+
+// hungarian solves dense rectangular assignment problems with the
+// shortest-augmenting-path form of the Hungarian method (Kuhn–Munkres with
+// potentials, as in Jonker and Volgenant), O(n²·m) for n ≤ m. Its buffers
+// are reused between calls.
+type hungarian struct {
+	cost, u, v, minv []float64
+	p, way, colTo    []int
+	used             []bool
+}
+
+// maximize sets rowTo[i] to the column assigned to row i, or -1, so that
+// min(n, m) pairs are chosen with the largest total weight w[i*m+j]. Like
+// the dense solvers of numeric libraries it always makes min(n, m) pairs;
+// callers drop those of weight 0. w is not modified. It reports false,
+// leaving rowTo unset, when done was closed before it finished.
+func (h *hungarian) maximize(done <-chan struct{}, n, m int, w []float64, rowTo []int) bool {
+	for i := range rowTo[:n] {
+		rowTo[i] = -1
+	}
+	if n == 0 || m == 0 {
+		return true
+	}
+	h.cost = grow(h.cost, n*m)
+	if n <= m {
+		for k, x := range w[:n*m] {
+			h.cost[k] = -x
+		}
+		return h.solve(done, n, m, rowTo)
+	}
+	// More rows than columns: assign the columns to rows instead.
 	for i := range n {
-		for j, w := range g[i*m : i*m+m] {
-			if w < 0 {
-				edges++
-				if ri, rj := a.find(i), a.find(n+j); ri != rj {
-					a.comp[max(ri, rj)] = min(ri, rj) // the root is the lowest node
-				}
-			}
+		for j := range m {
+			h.cost[j*n+i] = -w[i*m+j]
 		}
 	}
-	if edges == 0 {
-		return a.pairs
+	h.colTo = grow(h.colTo, m)
+	if !h.solve(done, m, n, h.colTo) {
+		return false
 	}
-	// Group the nodes of each component, rows first, in index order: count
-	// the members under each root, then place them.
-	a.start = slices.Grow(a.start[:0], nodes+1)[:nodes+1]
-	clear(a.start)
-	a.root = slices.Grow(a.root[:0], nodes)[:nodes]
-	for x := range nodes {
-		a.root[x] = a.find(x)
-		a.start[a.root[x]+1]++
-	}
-	for r := range nodes {
-		a.start[r+1] += a.start[r]
-	}
-	a.fill = append(a.fill[:0], a.start[:nodes]...)
-	a.memb = slices.Grow(a.memb[:0], nodes)[:nodes]
-	for x := range nodes {
-		r := a.root[x]
-		a.memb[a.fill[r]] = x
-		a.fill[r]++
-	}
-	for r := range nodes {
-		if a.root[r] != r {
-			continue
+	for j, i := range h.colTo {
+		if i >= 0 {
+			rowTo[i] = j
 		}
-		members := a.memb[a.start[r]:a.start[r+1]]
-		k := 0 // members[:k] are rows, members[k:] columns
-		for k < len(members) && members[k] < n {
-			k++
-		}
-		rows, cols := members[:k], members[k:]
-		if len(rows) == 0 || len(cols) == 0 {
-			continue // a node with no allowed pair
-		}
-		a.solveBlock(g, m, n, rows, cols)
 	}
-	slices.SortFunc(a.pairs, func(x, y [2]int) int { return x[0] - y[0] })
-	return a.pairs
+	return true
 }
 
-// solveBlock solves one component given by its rows and columns (columns
-// numbered from n) and appends its matched pairs to a.pairs.
-func (a *assigner) solveBlock(g []float64, m, n int, rows, cols []int) {
-	nr, nc := len(rows), len(cols)
-	if nr == 1 || nc == 1 { // a star: the single best pair (the first on ties)
-		bi, bj, best := -1, -1, 0.0
-		for _, i := range rows {
-			for _, cj := range cols {
-				if w := g[i*m+cj-n]; w < best {
-					bi, bj, best = i, cj-n, w
-				}
-			}
+// solve minimises Σ h.cost[i*m+rowTo[i]] over assignments of all n rows to
+// distinct columns, n ≤ m. Indices inside are 1-based, column 0 being the
+// virtual start of each augmenting path. It reports false when done was
+// closed first, which it checks before each row.
+func (h *hungarian) solve(done <-chan struct{}, n, m int, rowTo []int) bool {
+	cost := h.cost[:n*m]
+	u := fill(grow(h.u, n+1), 0)
+	v := fill(grow(h.v, m+1), 0)
+	p := fill(grow(h.p, m+1), 0)
+	way := fill(grow(h.way, m+1), 0)
+	minv := grow(h.minv, m+1)
+	used := grow(h.used, m+1)
+	h.u, h.v, h.p, h.way, h.minv, h.used = u, v, p, way, minv, used
+	for i := 1; i <= n; i++ {
+		select {
+		case <-done:
+			return false
+		default:
 		}
-		if bi >= 0 {
-			a.pairs = append(a.pairs, [2]int{bi, bj})
-		}
-		return
-	}
-	// The Hungarian method needs rows ≤ columns: transpose otherwise.
-	tr := nr > nc
-	r, c := nr, nc
-	if tr {
-		r, c = nc, nr
-	}
-	a.sub = slices.Grow(a.sub[:0], r*c)[:r*c]
-	for x, i := range rows {
-		for y, cj := range cols {
-			w := g[i*m+cj-n]
-			if tr {
-				a.sub[y*c+x] = w
-			} else {
-				a.sub[x*c+y] = w
-			}
-		}
-	}
-	a.hungarian(a.sub, r, c)
-	for x := range r {
-		y := a.rowOf[x]
-		if a.sub[x*c+y] >= 0 {
-			continue // completes the assignment, not a pair
-		}
-		if tr {
-			a.pairs = append(a.pairs, [2]int{rows[y], cols[x] - n})
-		} else {
-			a.pairs = append(a.pairs, [2]int{rows[x], cols[y] - n})
-		}
-	}
-}
-
-// hungarian assigns every row of the r×c matrix w (r ≤ c) to a distinct
-// column at the least total cost and leaves the column of row x in
-// a.rowOf[x]. Shortest augmenting paths with row and column potentials, one
-// row added at a time; indices are 1-based inside, 0 being a virtual column.
-func (a *assigner) hungarian(w []float64, r, c int) {
-	inf := math.Inf(1)
-	a.u = slices.Grow(a.u[:0], r+1)[:r+1]
-	a.v = slices.Grow(a.v[:0], c+1)[:c+1]
-	a.minv = slices.Grow(a.minv[:0], c+1)[:c+1]
-	a.p = slices.Grow(a.p[:0], c+1)[:c+1]
-	a.way = slices.Grow(a.way[:0], c+1)[:c+1]
-	a.used = slices.Grow(a.used[:0], c+1)[:c+1]
-	clear(a.u)
-	clear(a.v)
-	clear(a.p)
-	clear(a.way)
-	for i := 1; i <= r; i++ {
-		a.p[0] = i
+		p[0] = i
 		j0 := 0
-		for j := range a.minv {
-			a.minv[j] = inf
-		}
-		clear(a.used)
+		fill(minv, math.Inf(1))
+		fill(used, false)
 		for {
-			a.used[j0] = true
-			i0, delta, j1 := a.p[j0], inf, 0
-			row := w[(i0-1)*c : i0*c]
-			ui := a.u[i0]
-			for j := 1; j <= c; j++ {
-				if a.used[j] {
+			used[j0] = true
+			i0 := p[j0]
+			row := cost[(i0-1)*m : i0*m]
+			ui := u[i0]
+			delta, j1 := math.Inf(1), 0
+			for j := 1; j <= m; j++ {
+				if used[j] {
 					continue
 				}
-				if cur := row[j-1] - ui - a.v[j]; cur < a.minv[j] {
-					a.minv[j], a.way[j] = cur, j0
+				if cur := row[j-1] - ui - v[j]; cur < minv[j] {
+					minv[j], way[j] = cur, j0
 				}
-				if a.minv[j] < delta {
-					delta, j1 = a.minv[j], j
+				if minv[j] < delta {
+					delta, j1 = minv[j], j
 				}
 			}
-			for j := 0; j <= c; j++ {
-				if a.used[j] {
-					a.u[a.p[j]] += delta
-					a.v[j] -= delta
+			for j := 0; j <= m; j++ {
+				if used[j] {
+					u[p[j]] += delta
+					v[j] -= delta
 				} else {
-					a.minv[j] -= delta
+					minv[j] -= delta
 				}
 			}
 			j0 = j1
-			if a.p[j0] == 0 {
+			if p[j0] == 0 {
 				break
 			}
 		}
 		for j0 != 0 { // flip the augmenting path
-			j1 := a.way[j0]
-			a.p[j0] = a.p[j1]
+			j1 := way[j0]
+			p[j0] = p[j1]
 			j0 = j1
 		}
 	}
-	a.rowOf = slices.Grow(a.rowOf[:0], r)[:r]
-	for j := 1; j <= c; j++ {
-		if a.p[j] != 0 {
-			a.rowOf[a.p[j]-1] = j - 1
+	for i := range rowTo[:n] {
+		rowTo[i] = -1
+	}
+	for j := 1; j <= m; j++ {
+		if p[j] != 0 {
+			rowTo[p[j]-1] = j - 1
 		}
 	}
+	return true
+}
+
+// grow returns s resized to n, reallocating only when its capacity is short.
+func grow[T any](s []T, n int) []T {
+	if cap(s) < n {
+		return make([]T, n)
+	}
+	return s[:n]
+}
+
+// fill sets every element of s to x and returns s.
+func fill[T any](s []T, x T) []T {
+	for i := range s {
+		s[i] = x
+	}
+	return s
 }

@@ -1,285 +1,332 @@
 package track
 
 import (
-	"fmt"
+	"context"
+	"errors"
 	"math"
 	"math/rand/v2"
-	"reflect"
+	"slices"
 	"testing"
 )
 
-var inf = math.Inf(1)
+var (
+	posInf = math.Inf(1)
+	none   = math.NaN() // in a matrix: a pair that is not listed
+)
 
-// feasibility and value of a pair for each objective under test.
-type objective struct {
-	name string
-	ok   func(c float64) bool    // may the pair be matched
-	gain func(c float64) float64 // what matching it is worth (larger is better)
-	// lexicographic: more pairs first, then gain (Assign without a gate)
-	mostPairs bool
-}
-
-func assignObjective(maxCost float64) objective {
-	if math.IsInf(maxCost, 1) {
-		return objective{
-			name:      "Assign(+Inf)",
-			ok:        func(c float64) bool { return !math.IsInf(c, 0) && !math.IsNaN(c) },
-			gain:      func(c float64) float64 { return -c },
-			mostPairs: true,
-		}
-	}
-	return objective{
-		name: fmt.Sprintf("Assign(%v)", maxCost),
-		ok:   func(c float64) bool { return c < maxCost && !math.IsInf(c, -1) },
-		gain: func(c float64) float64 { return maxCost - c },
-	}
-}
-
-func assignMaxObjective(minScore float64) objective {
-	return objective{
-		name: fmt.Sprintf("AssignMax(%v)", minScore),
-		ok:   func(s float64) bool { return s >= minScore && s > 0 && !math.IsInf(s, 1) },
-		gain: func(s float64) float64 { return s },
-	}
-}
-
-// bruteForce tries every matching of the allowed pairs and returns the best
-// number of pairs and total gain.
-func bruteForce(mat [][]float64, obj objective) (bestPairs int, bestGain float64) {
-	n := len(mat)
-	m := 0
-	if n > 0 {
-		m = len(mat[0])
-	}
-	bestGain = math.Inf(-1)
-	usedCol := make([]bool, m)
-	better := func(p int, g float64) bool {
-		if obj.mostPairs && p != bestPairs {
-			return p > bestPairs
-		}
-		return g > bestGain
-	}
-	var rec func(i, pairs int, gain float64)
-	rec = func(i, pairs int, gain float64) {
-		if i == n {
-			if better(pairs, gain) {
-				bestPairs, bestGain = pairs, gain
-			}
-			return
-		}
-		rec(i+1, pairs, gain) // row i unmatched
+// pairsOf lists the entries of an n×m row-major matrix as pairs, row by
+// row, leaving out NaN entries (the pairs that are not listed).
+func pairsOf(n, m int, w []float64) []Pair {
+	var ps []Pair
+	for i := range n {
 		for j := range m {
-			if !usedCol[j] && obj.ok(mat[i][j]) {
-				usedCol[j] = true
-				rec(i+1, pairs+1, gain+obj.gain(mat[i][j]))
-				usedCol[j] = false
+			if v := w[i*m+j]; !math.IsNaN(v) {
+				ps = append(ps, Pair{Row: int32(i), Col: int32(j), Weight: v})
 			}
 		}
 	}
-	rec(0, 0, 0)
-	return bestPairs, bestGain
+	return ps
 }
 
-// checkPairs verifies that pairs is a valid matching of allowed pairs,
-// ordered by row, and returns its size and gain.
-func checkPairs(t *testing.T, mat [][]float64, obj objective, pairs [][2]int) (int, float64) {
+// eligible is the rule Assign documents: positive and finite.
+func eligible(v float64) bool { return v > 0 && !math.IsInf(v, 1) }
+
+// bruteBest is the largest total weight of a one-to-one matching of the
+// eligible entries of an n×m matrix, by trying every matching.
+func bruteBest(n, m int, w []float64) float64 {
+	used := make([]bool, m)
+	var rec func(i int) float64
+	rec = func(i int) float64 {
+		if i == n {
+			return 0
+		}
+		best := rec(i + 1) // row i unmatched
+		for j := range m {
+			if v := w[i*m+j]; !used[j] && eligible(v) {
+				used[j] = true
+				best = max(best, v+rec(i+1))
+				used[j] = false
+			}
+		}
+		return best
+	}
+	return rec(0)
+}
+
+// checkMatching fails unless rowTo is one-to-one over eligible entries and
+// returns its weight.
+func checkMatching(t *testing.T, n, m int, w []float64, rowTo []int32) float64 {
 	t.Helper()
-	rows, cols := map[int]bool{}, map[int]bool{}
-	gain := 0.0
-	for k, p := range pairs {
-		i, j := p[0], p[1]
-		if i < 0 || i >= len(mat) || j < 0 || j >= len(mat[i]) {
-			t.Fatalf("pair %v out of range", p)
+	seen := make([]bool, m)
+	total := 0.0
+	for i, j := range rowTo[:n] {
+		if j < 0 {
+			continue
 		}
-		if rows[i] || cols[j] {
-			t.Fatalf("row or column used twice in %v", pairs)
+		if int(j) >= m || seen[j] {
+			t.Fatalf("row %d assigned to column %d twice or out of range: %v", i, j, rowTo)
 		}
-		if k > 0 && pairs[k-1][0] >= i {
-			t.Fatalf("pairs not ordered by row: %v", pairs)
+		if v := w[i*m+int(j)]; !eligible(v) {
+			t.Fatalf("row %d matched to column %d of weight %v", i, j, v)
 		}
-		rows[i], cols[j] = true, true
-		if !obj.ok(mat[i][j]) {
-			t.Fatalf("pair %v with value %v is gated out", p, mat[i][j])
-		}
-		gain += obj.gain(mat[i][j])
+		seen[j] = true
+		total += w[i*m+int(j)]
 	}
-	return len(pairs), gain
+	return total
 }
 
-// randomMatrix makes an n×m matrix of one of a few kinds, so that ties,
-// gated entries and unusable entries all occur.
-func randomMatrix(rng *rand.Rand, n, m int) [][]float64 {
+// randomWeights makes an n×m matrix of one of a few kinds, so that exact
+// ties, missing pairs and ineligible weights all occur.
+func randomWeights(rng *rand.Rand, n, m int) []float64 {
 	kind := rng.IntN(4)
-	mat := make([][]float64, n)
-	for i := range mat {
-		mat[i] = make([]float64, m)
-		for j := range mat[i] {
-			switch kind {
-			case 0: // continuous
-				mat[i][j] = rng.Float64()
-			case 1: // small integers: many ties
-				mat[i][j] = float64(rng.IntN(4))
-			case 2: // wide range, negative values too
-				mat[i][j] = (rng.Float64() - 0.3) * 100
-			case 3: // sparse: most entries unusable
-				mat[i][j] = rng.Float64()
-				if rng.IntN(3) > 0 {
-					mat[i][j] = [...]float64{inf, math.NaN(), math.Inf(-1)}[rng.IntN(3)]
-				}
+	w := make([]float64, n*m)
+	for k := range w {
+		switch kind {
+		case 0: // continuous, some pairs missing
+			w[k] = rng.Float64()
+			if rng.IntN(4) == 0 {
+				w[k] = none
+			}
+		case 1: // small integers: many ties, 0 is not eligible
+			w[k] = float64(rng.IntN(4))
+		case 2: // wide range, negative values too
+			w[k] = (rng.Float64() - 0.3) * 100
+		case 3: // sparse: most entries missing or unusable
+			w[k] = rng.Float64()
+			if rng.IntN(3) > 0 {
+				w[k] = [...]float64{posInf, none, math.Inf(-1), 0, -1}[rng.IntN(5)]
 			}
 		}
 	}
-	return mat
+	return w
 }
 
-// TestAssignBruteForce compares Assign and AssignMax with an exhaustive
-// search on random matrices of up to 8x8, square and rectangular, with and
-// without a gate.
-func TestAssignBruteForce(t *testing.T) {
+// TestAssignEqualsBruteForce: Assign reaches the optimum of an exhaustive
+// search on random matrices up to 8x8, square and rectangular, and the
+// dense solver inside it makes min(n, m) pairs of the largest total weight
+// (the check the issue asks of any assignment solver).
+func TestAssignEqualsBruteForce(t *testing.T) {
 	rng := rand.New(rand.NewPCG(2016, 1987))
-	gates := []float64{0.25, 0.5, 0.8, 2, 50, inf}
-	cases := 400
+	trials := 600
 	if testing.Short() {
-		cases = 60
+		trials = 60
 	}
-	for k := range cases {
-		n, m := 1+rng.IntN(8), 1+rng.IntN(8)
-		if k < 10 { // always cover the largest size
+	var (
+		as Assigner
+		h  hungarian
+	)
+	for trial := range trials {
+		n, m := rng.IntN(9), rng.IntN(9)
+		if trial < 10 { // always cover the largest size
 			n, m = 8, 8
 		}
-		mat := randomMatrix(rng, n, m)
-		gate := gates[rng.IntN(len(gates))]
-		for _, tc := range []struct {
-			obj   objective
-			pairs [][2]int
-		}{
-			{assignObjective(gate), Assign(mat, gate)},
-			{assignMaxObjective(gate - 1), AssignMax(mat, gate-1)},
-		} {
-			wantN, wantG := bruteForce(mat, tc.obj)
-			gotN, gotG := checkPairs(t, mat, tc.obj, tc.pairs)
-			tol := 1e-9 * (1 + math.Abs(wantG))
-			if (tc.obj.mostPairs && gotN != wantN) || math.Abs(gotG-wantG) > tol {
-				t.Fatalf("case %d, %dx%d %s: got %d pairs worth %v, brute force %d worth %v\nmatrix %v\npairs %v",
-					k, n, m, tc.obj.name, gotN, gotG, wantN, wantG, mat, tc.pairs)
+		w := randomWeights(rng, n, m)
+		pairs := pairsOf(n, m, w)
+		orig := slices.Clone(pairs)
+		want := bruteBest(n, m, w)
+
+		rowTo := make([]int32, n)
+		as.Assign(n, m, pairs, rowTo)
+		if got := checkMatching(t, n, m, w, rowTo); math.Abs(got-want) > 1e-9*(1+math.Abs(want)) {
+			t.Fatalf("trial %d, %dx%d: Assign total %v, brute force %v\n%v", trial, n, m, got, want, w)
+		}
+		if !slices.EqualFunc(pairs, orig, func(a, b Pair) bool {
+			return a.Row == b.Row && a.Col == b.Col && (a.Weight == b.Weight || math.IsNaN(a.Weight) && math.IsNaN(b.Weight))
+		}) {
+			t.Fatalf("trial %d: the pairs were modified", trial)
+		}
+
+		// The dense solver on the eligible weights (others 0).
+		dense := make([]float64, n*m)
+		for k, v := range w {
+			if eligible(v) {
+				dense[k] = v
 			}
+		}
+		assigned := make([]int, n)
+		h.maximize(nil, n, m, dense, assigned)
+		links, total := 0, 0.0
+		used := make([]bool, m)
+		for i, j := range assigned {
+			if j < 0 {
+				continue
+			}
+			if used[j] {
+				t.Fatalf("trial %d: dense solver used column %d twice: %v", trial, j, assigned)
+			}
+			used[j] = true
+			links++
+			total += dense[i*m+j]
+		}
+		if links != min(n, m) || math.Abs(total-want) > 1e-9*(1+math.Abs(want)) {
+			t.Fatalf("trial %d, %dx%d: dense solver made %d pairs worth %v, want %d worth %v",
+				trial, n, m, links, total, min(n, m), want)
 		}
 	}
 }
 
 func TestAssignCases(t *testing.T) {
-	nan := math.NaN()
 	tests := []struct {
-		name    string
-		cost    [][]float64
-		maxCost float64
-		want    [][2]int
+		name string
+		n, m int
+		w    []float64
+		want []int32 // per row: column or -1
 	}{
-		{"empty", nil, 1, nil},
-		{"no columns", [][]float64{{}, {}}, 1, nil},
-		{"identity", [][]float64{{0, 1}, {1, 0}}, inf, [][2]int{{0, 0}, {1, 1}}},
-		{"anti-diagonal", [][]float64{{5, 1}, {1, 5}}, inf, [][2]int{{0, 1}, {1, 0}}},
-		// Greedy would take the 0.1 and leave the rest unmatched; the optimum
+		{"empty", 0, 0, nil, []int32{}},
+		{"no columns", 2, 0, nil, []int32{-1, -1}},
+		{"no pairs", 2, 2, []float64{none, none, none, none}, []int32{-1, -1}},
+		// Greedy would take the 0.9 and leave row 1 unmatched; the optimum
 		// matches both rows.
-		{"optimal, not greedy", [][]float64{{0.1, 0.2}, {0.3, 0.9}}, 0.5, [][2]int{{0, 1}, {1, 0}}},
-		{"gate leaves a row unmatched", [][]float64{{0.1, 0.2}, {0.6, 0.9}}, 0.5, [][2]int{{0, 0}}},
-		{"at the gate is not matched", [][]float64{{0.5}}, 0.5, nil},
-		{"wide", [][]float64{{3, 2, 1, 4}}, inf, [][2]int{{0, 2}}},
-		{"tall", [][]float64{{3}, {2}, {1}, {4}}, inf, [][2]int{{2, 0}}},
-		// Without a gate the most pairs win over a cheaper single pair; with
-		// one, what each pair saves below the gate decides: 12 for the single
-		// pair against 2 + 2.
-		{"no gate: most pairs", [][]float64{{0, 10}, {10, inf}}, inf, [][2]int{{0, 1}, {1, 0}}},
-		{"gate: most saving", [][]float64{{0, 10}, {10, inf}}, 12, [][2]int{{0, 0}}},
-		{"gate: two pairs save more", [][]float64{{0, 10}, {10, inf}}, 30, [][2]int{{0, 1}, {1, 0}}},
-		{"NaN and Inf never matched", [][]float64{{nan, inf}, {math.Inf(-1), 0}}, inf, [][2]int{{1, 1}}},
-		{"NaN gate matches nothing", [][]float64{{0}}, nan, nil},
-		{"independent blocks", [][]float64{
-			{0.1, 0.2, inf, inf},
-			{0.2, 0.1, inf, inf},
-			{inf, inf, 0.3, inf},
-			{inf, inf, inf, inf},
-		}, 1, [][2]int{{0, 0}, {1, 1}, {2, 2}}},
+		{"sum, not greedy", 2, 2, []float64{0.9, 0.8, 0.7, none}, []int32{1, 0}},
+		{"wide", 1, 4, []float64{0.3, 0.2, 0.9, 0.4}, []int32{2}},
+		{"tall", 4, 1, []float64{0.3, 0.2, 0.9, 0.4}, []int32{-1, -1, 0, -1}},
+		{"zero, negative, NaN and Inf never matched", 2, 2, []float64{0, -1, posInf, 0.5}, []int32{-1, 1}},
+		// The evaluator's bonus for keeping last frame's match: 1000 + IoU.
+		{"bonus wins", 2, 2, []float64{1000.5, 0.9, 0.9, none}, []int32{0, -1}},
+		{"independent blocks", 4, 4, []float64{
+			0.9, 0.8, none, none,
+			0.8, 0.9, none, none,
+			none, none, 0.7, none,
+			none, none, none, none,
+		}, []int32{0, 1, 2, -1}},
+		// Exact ties: the first row and column in the order of the pairs.
+		{"tie in a row", 1, 3, []float64{0.5, 0.5, 0.5}, []int32{0}},
+		{"tie in a column", 3, 1, []float64{0.5, 0.5, 0.5}, []int32{0, -1, -1}},
 	}
+	var as Assigner
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
-			if got := Assign(tt.cost, tt.maxCost); !reflect.DeepEqual(got, tt.want) {
-				t.Errorf("Assign = %v, want %v", got, tt.want)
+			rowTo := make([]int32, tt.n)
+			for i := range rowTo {
+				rowTo[i] = 7 // must be overwritten
+			}
+			as.Assign(tt.n, tt.m, pairsOf(tt.n, tt.m, tt.w), rowTo)
+			if !slices.Equal(rowTo, tt.want) {
+				t.Errorf("rowTo = %v, want %v", rowTo, tt.want)
 			}
 		})
 	}
 }
 
-func TestAssignMaxCases(t *testing.T) {
-	tests := []struct {
-		name     string
-		score    [][]float64
-		minScore float64
-		want     [][2]int
+// A pair listed twice counts with its last weight.
+func TestAssignDuplicatePair(t *testing.T) {
+	var as Assigner
+	rowTo := make([]int32, 2)
+	as.Assign(2, 2, []Pair{{0, 0, 0.1}, {1, 0, 0.5}, {0, 0, 0.9}}, rowTo)
+	if !slices.Equal(rowTo, []int32{0, -1}) {
+		t.Errorf("rowTo = %v, want [0 -1]", rowTo)
+	}
+}
+
+// AssignContext refuses a group of linked rows and columns beyond its limit,
+// and stops on a context that is done; Assign has neither limit nor stop.
+func TestAssignContextLimits(t *testing.T) {
+	w := []float64{0.9, 0.8, none, 0.7, 0.9, 0.1, none, 0.2, 0.9} // one 3x3 group
+	pairs := pairsOf(3, 3, w)
+	rowTo := make([]int32, 3)
+	var as Assigner
+	err := as.assign(nil, 8, 3, 3, pairs, rowTo)
+	want := "assignment too large: 3 rows and 3 columns linked by eligible pairs, beyond the limit of 8 cells"
+	if !errors.Is(err, ErrAssignTooLarge) || err.Error() != want {
+		t.Errorf("error = %v, want %s", err, want)
+	}
+	if err := as.assign(nil, 9, 3, 3, pairs, rowTo); err != nil || !slices.Equal(rowTo, []int32{0, 1, 2}) {
+		t.Errorf("within the limit: rowTo %v, error %v", rowTo, err)
+	}
+	// The matcher is reusable after a refusal.
+	as.Assign(3, 3, pairs, rowTo)
+	if !slices.Equal(rowTo, []int32{0, 1, 2}) {
+		t.Errorf("after a refusal: rowTo %v", rowTo)
+	}
+
+	ctx, cancel := context.WithCancel(context.Background())
+	if err := as.AssignContext(ctx, 3, 3, pairs, rowTo); err != nil || !slices.Equal(rowTo, []int32{0, 1, 2}) {
+		t.Errorf("live context: rowTo %v, error %v", rowTo, err)
+	}
+	cancel()
+	if err := as.AssignContext(ctx, 3, 3, pairs, rowTo); !errors.Is(err, context.Canceled) {
+		t.Errorf("cancelled context: error %v, want context.Canceled", err)
+	}
+	// A single pair needs no solving and is matched whatever the context.
+	if err := as.AssignContext(ctx, 1, 1, []Pair{{0, 0, 1}}, rowTo[:1]); err != nil || rowTo[0] != 0 {
+		t.Errorf("one pair, cancelled context: rowTo %v, error %v", rowTo[:1], err)
+	}
+}
+
+// E2. py-motmetrics test_assignment.py::test_assignment and test_hungarian.py:
+// minimise total cost, forbidden pairs never chosen, the largest possible
+// number of pairs first. As a maximisation: weight = B − cost with B above
+// the sum of all costs, so one more pair always outweighs any cost saving.
+func TestExampleE2AssignmentWithForbiddenPairs(t *testing.T) {
+	const src = "py-motmetrics test_assignment.py::test_assignment / test_hungarian.py (asserted)"
+	for _, c := range []struct {
+		name  string
+		n, m  int
+		cost  []float64
+		want  [][2]int
+		total float64
 	}{
-		{"sum, not greedy", [][]float64{{0.9, 0.8}, {0.7, 0.1}}, 0.5, [][2]int{{0, 1}, {1, 0}}},
-		{"below minScore never matched", [][]float64{{0.9, 0.8}, {0.4, 0.1}}, 0.5, [][2]int{{0, 0}}},
-		{"at minScore matched", [][]float64{{0.5}}, 0.5, [][2]int{{0, 0}}},
-		{"zero and negative never matched", [][]float64{{0, -1}}, math.Inf(-1), nil},
-		// The evaluation code's bonus for keeping a match: 1000 + IoU.
-		{"bonus wins", [][]float64{{1000.5, 0.9}, {0.9, 0}}, 0.5, [][2]int{{0, 0}}},
-	}
-	for _, tt := range tests {
-		t.Run(tt.name, func(t *testing.T) {
-			if got := AssignMax(tt.score, tt.minScore); !reflect.DeepEqual(got, tt.want) {
-				t.Errorf("AssignMax = %v, want %v", got, tt.want)
-			}
-		})
-	}
-}
-
-func TestAssignRaggedPanics(t *testing.T) {
-	defer func() {
-		want := "track: assignment matrix is ragged: row 0 has 2 columns, row 1 has 1"
-		if r := recover(); r != want {
-			t.Errorf("panic %v, want %q", r, want)
-		}
-	}()
-	Assign([][]float64{{1, 2}, {3}}, 5)
-}
-
-// TestAssignDoesNotKeepResult checks that a result is the caller's: the
-// solver's scratch space must not leak into it.
-func TestAssignDoesNotKeepResult(t *testing.T) {
-	a := Assign([][]float64{{0, 1}, {1, 0}}, inf)
-	b := Assign([][]float64{{1, 0}, {0, 1}}, inf)
-	if !reflect.DeepEqual(a, [][2]int{{0, 0}, {1, 1}}) || !reflect.DeepEqual(b, [][2]int{{0, 1}, {1, 0}}) {
-		t.Errorf("results %v and %v", a, b)
-	}
-}
-
-// BenchmarkAssign solves dense random square problems without a gate (one
-// block: the worst case), and sparse gated ones like a tracker's.
-func BenchmarkAssign(b *testing.B) {
-	for _, n := range []int{20, 200} {
-		rng := rand.New(rand.NewPCG(1, uint64(n)))
-		dense := make([][]float64, n)
-		sparse := make([][]float64, n)
-		for i := range dense {
-			dense[i] = make([]float64, n)
-			sparse[i] = make([]float64, n)
-			for j := range dense[i] {
-				dense[i][j] = rng.Float64()
-				sparse[i][j] = 1
-				if d := i - j; d >= -1 && d <= 1 { // each row overlaps its neighbours
-					sparse[i][j] = rng.Float64() * 0.7
+		{"3x3 a", 3, 3, []float64{6, 9, 1, 10, 3, 2, 8, 7, 4}, [][2]int{{0, 2}, {1, 1}, {2, 0}}, 12},
+		{"3x3 b", 3, 3, []float64{5, 5, 6, 1, 2, 5, 2, 4, 5}, [][2]int{{0, 2}, {1, 1}, {2, 0}}, 10},
+		{"row 0 left out", 3, 3, []float64{none, none, 2, none, none, 1, 8, 7, 4}, [][2]int{{1, 2}, {2, 1}}, 8},
+		{"3x3 with forbidden", 3, 3, []float64{5, 9, none, 10, none, 2, 8, 7, 4}, [][2]int{{0, 0}, {1, 2}, {2, 1}}, 14},
+		{"2x3", 2, 3, []float64{1, none, none, none, 1, none}, [][2]int{{0, 0}, {1, 1}}, 2},
+		{"3x2 all forbidden", 3, 2, []float64{none, none, none, none, none, none}, nil, 0},
+		{"0x0", 0, 0, nil, nil, 0},
+		{"1x0", 1, 0, nil, nil, 0},
+		{"0x1", 0, 1, nil, nil, 0},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			big := 1.0
+			for _, v := range c.cost {
+				if !math.IsNaN(v) {
+					big += v
 				}
 			}
+			var pairs []Pair
+			for k, v := range c.cost {
+				if !math.IsNaN(v) {
+					pairs = append(pairs, Pair{Row: int32(k / c.m), Col: int32(k % c.m), Weight: big - v})
+				}
+			}
+			rowTo := make([]int32, c.n)
+			var as Assigner
+			as.Assign(c.n, c.m, pairs, rowTo)
+			var got [][2]int
+			total := 0.0
+			for i, j := range rowTo {
+				if j >= 0 {
+					got = append(got, [2]int{i, int(j)})
+					total += c.cost[i*c.m+int(j)]
+				}
+			}
+			if !slices.Equal(got, c.want) {
+				t.Errorf("pairs = %v, want %v (source: %s)", got, c.want, src)
+			}
+			if total != c.total {
+				t.Errorf("total cost = %v, want %v (source: %s)", total, c.total, src)
+			}
+		})
+	}
+}
+
+// E3. py-motmetrics test_metric_engine.py::test_sparse_identity_assignment_uses_independent_components.
+func TestExampleE3SparseIdentityAssignment(t *testing.T) {
+	const src = "py-motmetrics test_metric_engine.py::test_sparse_identity_assignment_uses_independent_components (asserted)"
+	pairs := []Pair{{Row: 0, Col: 0, Weight: 3}, {Row: 0, Col: 1, Weight: 4}, {Row: 1, Col: 1, Weight: 5}, {Row: 2, Col: 2, Weight: 2}}
+	rowTo := make([]int32, 3)
+	var as Assigner
+	as.Assign(3, 3, pairs, rowTo)
+	if !slices.Equal(rowTo, []int32{0, 1, 2}) {
+		t.Errorf("GT→H = %v, want [0 1 2] (source: %s)", rowTo, src)
+	}
+	total := 0.0
+	for _, e := range pairs {
+		if rowTo[e.Row] == e.Col {
+			total += e.Weight
 		}
-		b.Run(fmt.Sprintf("dense/%dx%d", n, n), func(b *testing.B) {
-			for b.Loop() {
-				Assign(dense, inf)
-			}
-		})
-		b.Run(fmt.Sprintf("gated/%dx%d", n, n), func(b *testing.B) {
-			for b.Loop() {
-				Assign(sparse, 0.8)
-			}
-		})
+	}
+	if total != 10 {
+		t.Errorf("IDTP = %v, want 10 (source: %s)", total, src)
 	}
 }

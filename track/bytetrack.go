@@ -21,9 +21,12 @@ import (
 //     not advance predicts nothing.
 //  2. First association. Detections scoring at least HighScore are linked
 //     with all tracks (confirmed, lost and tentative, as in the paper's
-//     algorithm) by optimal assignment (Assign) on the cost 1 − IoU between a
-//     track's predicted box and the detection; pairs whose IoU is not above
-//     MatchIoU are never linked. With PerClass, only pairs of the same class.
+//     algorithm) by optimal assignment on the cost 1 − IoU between a track's
+//     predicted box and the detection; pairs whose IoU is not above MatchIoU
+//     are never linked, and the assignment maximises the total of IoU −
+//     MatchIoU over linked pairs (the cost_limit of the LAPJV solver used by
+//     SORT and ByteTrack, where a track or detection left unmatched costs
+//     half the limit). With PerClass, only pairs of the same class.
 //  3. Second association. Detections scoring in [LowScore, HighScore) are
 //     linked the same way with the confirmed tracks, lost or not, that are
 //     still unmatched; the IoU must be above LowMatchIoU. Low detections left
@@ -75,7 +78,9 @@ type ByteTrack struct {
 	rows      []int        // second association: indices into order
 	match     []int        // per track in order: detection index or -1
 	used      []bool       // per detection: matched
-	asg       assigner
+	pairs     []Pair
+	rowTo     []int32
+	asg       Assigner
 }
 
 type byteTrack struct {
@@ -235,7 +240,7 @@ func (t *ByteTrack) link(dets []detect.Detection, rows, cols []int, minIoU float
 	if n == 0 || m == 0 {
 		return
 	}
-	g := t.asg.gains(n, m)
+	t.pairs = t.pairs[:0]
 	for r, ti := range rows {
 		p := t.pred[ti]
 		tr := t.order[ti]
@@ -254,15 +259,19 @@ func (t *ByteTrack) link(dets []detect.Detection, rows, cols []int, minIoU float
 				iou = max(iou, overlapIoU(last, d.Box))
 			}
 			if iou > minIoU { // false for NaN
-				// The gain of Assign with cost 1 − IoU and maxCost 1 − minIoU.
-				g[r*m+c] = minIoU - iou
+				// What linking the pair saves below the cost limit 1 − minIoU.
+				t.pairs = append(t.pairs, Pair{Row: int32(r), Col: int32(c), Weight: iou - minIoU})
 			}
 		}
 	}
-	for _, pr := range t.asg.solve(g, n, m) {
-		ti, di := rows[pr[0]], cols[pr[1]]
-		t.match[ti] = di
-		t.used[di] = true
+	t.rowTo = slices.Grow(t.rowTo[:0], n)[:n]
+	t.asg.Assign(n, m, t.pairs, t.rowTo)
+	for r, c := range t.rowTo {
+		if c >= 0 {
+			ti, di := rows[r], cols[c]
+			t.match[ti] = di
+			t.used[di] = true
+		}
 	}
 }
 
@@ -272,16 +281,7 @@ func (t *ByteTrack) hit(tr *byteTrack, ts time.Duration, d detect.Detection) {
 	tr.Estimate = tr.kf.box()
 	tr.Box, tr.Score, tr.LastSeen = d.Box, d.Score, ts
 	tr.Misses = 0
-	if d.Class != tr.Class || tr.votes != nil {
-		// Class by majority of matched frames; a tie keeps the current class.
-		if tr.votes == nil {
-			tr.votes = map[string]int{tr.Class: tr.Hits}
-		}
-		tr.votes[d.Class]++
-		if tr.votes[d.Class] > tr.votes[tr.Class] {
-			tr.Class = d.Class
-		}
-	}
+	voteClass(&tr.Track, &tr.votes, d.Class)
 	tr.Hits++
 }
 

@@ -47,7 +47,7 @@ type ByteTrackConfig struct {
 // confirmed on its second consecutive match, as there. The gate for low
 // detections is the stricter one: they are less reliable, and a looser gate
 // (IoU 0.1 or 0.2) switched more identities in the fault study
-// (faults_test.go).
+// (track/eval/faults_test.go).
 const (
 	DefaultHighScore          = 0.5
 	DefaultLowScore           = 0.1
@@ -75,10 +75,14 @@ func DefaultByteTrackConfig() ByteTrackConfig {
 // Validate reports every invalid setting at once, joined with errors.Join;
 // each one is a *ConfigError whose Field is the setting's key in a site file
 // (motion settings under "motion.").
-func (c ByteTrackConfig) Validate() error {
+func (c ByteTrackConfig) Validate() error { return errors.Join(c.problems("")...) }
+
+// problems returns every invalid setting as a *ConfigError whose field is
+// prefix + the setting's key.
+func (c ByteTrackConfig) problems(prefix string) []error {
 	var errs []error
 	fail := func(field, format string, args ...any) {
-		errs = append(errs, &ConfigError{Field: field, Msg: fmt.Sprintf(format, args...)})
+		errs = append(errs, &ConfigError{Field: prefix + field, Msg: fmt.Sprintf(format, args...)})
 	}
 	lowOK := c.LowScore >= 0 && c.LowScore <= 1 // false for NaN
 	if !lowOK {
@@ -109,6 +113,5 @@ func (c ByteTrackConfig) Validate() error {
 	if c.LostTTL < 0 {
 		fail("lost_ttl", "must not be negative (found %v)", c.LostTTL)
 	}
-	errs = append(errs, c.Motion.problems("motion.")...)
-	return errors.Join(errs...)
+	return append(errs, c.Motion.problems(prefix+"motion.")...)
 }

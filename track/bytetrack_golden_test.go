@@ -1,14 +1,10 @@
 package track
 
 import (
-	"bytes"
 	"fmt"
 	"path/filepath"
 	"strings"
 	"testing"
-
-	"tallyd/detect"
-	"tallyd/internal/motfmt"
 )
 
 // TestByteTrackGolden replays the baseline's inputs (testdata/*.det.txt) and
@@ -36,31 +32,10 @@ func TestByteTrackGolden(t *testing.T) {
 	for _, in := range inputs {
 		name := strings.TrimSuffix(filepath.Base(in), ".det.txt")
 		t.Run(name, func(t *testing.T) {
-			rows, err := motfmt.ReadFile(in)
-			if err != nil {
-				t.Fatal(err)
-			}
-			src := detect.NewFileDetector(rows, "person", DefaultLowScore)
-			tr := NewByteTrack(DefaultByteTrackConfig())
-			var out []motfmt.Row
-			var events bytes.Buffer
-			for f := 1; f <= src.Frames(); f++ {
-				res := tr.Update(ts(f), src.Frame(f))
-				out = append(out, ToRows(f, res.Active)...)
-				for _, e := range res.Ended {
-					fmt.Fprintf(&events, "frame %d ended %s\n", f, describeEstimate(e))
-				}
-			}
-			for _, e := range tr.Flush() {
-				fmt.Fprintf(&events, "flush %s\n", describeEstimate(e))
-			}
-			var tracks bytes.Buffer
-			if err := motfmt.Write(&tracks, out); err != nil {
-				t.Fatal(err)
-			}
+			tracks, events := replay(t, in, DefaultLowScore, NewByteTrack(DefaultByteTrackConfig()), describeEstimate)
 			dir := filepath.Join("testdata", "bytetrack")
-			compareGolden(t, filepath.Join(dir, name+".tracks.txt"), tracks.Bytes())
-			compareGolden(t, filepath.Join(dir, name+".events.txt"), events.Bytes())
+			compareGolden(t, filepath.Join(dir, name+".tracks.txt"), tracks)
+			compareGolden(t, filepath.Join(dir, name+".events.txt"), events)
 		})
 	}
 }

@@ -1,7 +1,6 @@
 package track
 
 import (
-	"errors"
 	"fmt"
 	"math"
 	"reflect"
@@ -343,20 +342,7 @@ func TestByteTrackConfigValidate(t *testing.T) {
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
-			err := tt.cfg.Validate()
-			if tt.want == "" {
-				if err != nil {
-					t.Fatalf("Validate: %v", err)
-				}
-				return
-			}
-			if err == nil || err.Error() != tt.want {
-				t.Fatalf("Validate error\n got: %v\nwant: %s", err, tt.want)
-			}
-			var ce *ConfigError
-			if !errors.As(err, &ce) {
-				t.Errorf("error %T holds no *ConfigError", err)
-			}
+			checkConfigErrors(t, tt.cfg.Validate(), tt.want)
 		})
 	}
 }

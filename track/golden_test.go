@@ -34,32 +34,44 @@ func TestIoUGolden(t *testing.T) {
 	for _, in := range inputs {
 		name := strings.TrimSuffix(filepath.Base(in), ".det.txt")
 		t.Run(name, func(t *testing.T) {
-			rows, err := motfmt.ReadFile(in)
-			if err != nil {
-				t.Fatal(err)
-			}
-			src := detect.NewFileDetector(rows, "person", 0.3)
-			tr := NewIoU(DefaultIoUConfig())
-			var out []motfmt.Row
-			var events bytes.Buffer
-			for f := 1; f <= src.Frames(); f++ {
-				res := tr.Update(ts(f), src.Frame(f))
-				out = append(out, ToRows(f, res.Active)...)
-				for _, e := range res.Ended {
-					fmt.Fprintf(&events, "frame %d ended %s\n", f, describe(e))
-				}
-			}
-			for _, e := range tr.Flush() {
-				fmt.Fprintf(&events, "flush %s\n", describe(e))
-			}
-			var tracks bytes.Buffer
-			if err := motfmt.Write(&tracks, out); err != nil {
-				t.Fatal(err)
-			}
-			compareGolden(t, filepath.Join("testdata", name+".tracks.txt"), tracks.Bytes())
-			compareGolden(t, filepath.Join("testdata", name+".events.txt"), events.Bytes())
+			tracks, events := replay(t, in, 0.3, NewIoU(DefaultIoUConfig()), describe)
+			compareGolden(t, filepath.Join("testdata", name+".tracks.txt"), tracks)
+			compareGolden(t, filepath.Join("testdata", name+".events.txt"), events)
 		})
 	}
+}
+
+// replay runs the detections file in (10 frames/s, scores from minScore)
+// through tr and returns the two golden outputs: Result.Active of every
+// frame in MOTChallenge format, and the tracks ended and flushed, each
+// written with desc.
+func replay(t *testing.T, in string, minScore float64, tr interface {
+	Tracker
+	Flush() []Track
+}, desc func(Track) string) (tracks, events []byte) {
+	t.Helper()
+	rows, err := motfmt.ReadFile(in)
+	if err != nil {
+		t.Fatal(err)
+	}
+	src := detect.NewFileDetector(rows, "person", minScore)
+	var out []motfmt.Row
+	var ev bytes.Buffer
+	for f := 1; f <= src.Frames(); f++ {
+		res := tr.Update(ts(f), src.Frame(f))
+		out = append(out, ToRows(f, res.Active)...)
+		for _, e := range res.Ended {
+			fmt.Fprintf(&ev, "frame %d ended %s\n", f, desc(e))
+		}
+	}
+	for _, e := range tr.Flush() {
+		fmt.Fprintf(&ev, "flush %s\n", desc(e))
+	}
+	var buf bytes.Buffer
+	if err := motfmt.Write(&buf, out); err != nil {
+		t.Fatal(err)
+	}
+	return buf.Bytes(), ev.Bytes()
 }
 
 func describe(t Track) string {

@@ -38,22 +38,16 @@ func DefaultIoUConfig() IoUConfig {
 	return IoUConfig{MinIoU: DefaultMinIoU, BirthHits: DefaultBirthHits, MaxMisses: DefaultMaxMisses}
 }
 
-// ConfigError is one invalid tracker setting. Field is the setting's key in
-// a site file (e.g. "min_iou"), so callers can prefix their own key path.
-type ConfigError struct {
-	Field string
-	Msg   string // the rule and the value found
-}
-
-// Error formats the problem as "field: rule (found value)".
-func (e *ConfigError) Error() string { return e.Field + ": " + e.Msg }
-
 // Validate reports every invalid setting at once, joined with errors.Join;
 // each one is a *ConfigError.
-func (c IoUConfig) Validate() error {
+func (c IoUConfig) Validate() error { return errors.Join(c.problems("")...) }
+
+// problems returns every invalid setting as a *ConfigError whose field is
+// prefix + the setting's key.
+func (c IoUConfig) problems(prefix string) []error {
 	var errs []error
 	fail := func(field, format string, args ...any) {
-		errs = append(errs, &ConfigError{Field: field, Msg: fmt.Sprintf(format, args...)})
+		errs = append(errs, &ConfigError{Field: prefix + field, Msg: fmt.Sprintf(format, args...)})
 	}
 	if !(c.MinIoU > 0 && c.MinIoU <= 1) { // also catches NaN
 		fail("min_iou", "must be within (0, 1] (found %v)", c.MinIoU)
@@ -64,7 +58,7 @@ func (c IoUConfig) Validate() error {
 	if c.MaxMisses < 0 {
 		fail("max_misses", "must not be negative (found %d)", c.MaxMisses)
 	}
-	return errors.Join(errs...)
+	return errs
 }
 
 // IoU is the baseline tracker: it links each detection to the track whose
@@ -234,16 +228,7 @@ func (t *IoU) associate(dets []detect.Detection) {
 func (t *IoU) hit(tr *iouTrack, ts time.Duration, d detect.Detection) {
 	tr.Box, tr.Score, tr.LastSeen = d.Box, d.Score, ts
 	tr.Misses = 0
-	if d.Class != tr.Class || tr.votes != nil {
-		// Class by majority of matched frames; a tie keeps the current class.
-		if tr.votes == nil {
-			tr.votes = map[string]int{tr.Class: tr.Hits}
-		}
-		tr.votes[d.Class]++
-		if tr.votes[d.Class] > tr.votes[tr.Class] {
-			tr.Class = d.Class
-		}
-	}
+	voteClass(&tr.Track, &tr.votes, d.Class)
 	tr.Hits++
 }
 

@@ -2,6 +2,8 @@
 // tracks with stable integer IDs. Two trackers share the Track and Result
 // types and the same methods: IoU, the baseline described below, and
 // ByteTrack, with a motion model and two-stage association (see its type).
+// Settings names one of them by Kind, holds the configuration of each with
+// its defaults (DefaultSettings), checks it and builds the Tracker.
 //
 // # IoU tracker
 //
@@ -57,6 +59,23 @@ type Track struct {
 	// reported the track: filtered for a matched track, predicted for a
 	// missed one. Zero for trackers without a motion model (IoU).
 	Estimate detect.Box
+}
+
+// voteClass counts a matched detection of class for tr, before tr.Hits
+// counts it, and sets tr.Class to the class matched most often (a tie keeps
+// the current class). votes is nil until a second class is seen, so that a
+// track of one class never allocates.
+func voteClass(tr *Track, votes *map[string]int, class string) {
+	if class == tr.Class && *votes == nil {
+		return
+	}
+	if *votes == nil {
+		*votes = map[string]int{tr.Class: tr.Hits}
+	}
+	(*votes)[class]++
+	if (*votes)[class] > (*votes)[tr.Class] {
+		tr.Class = class
+	}
 }
 
 // Result is what one Update returns.

@@ -21,6 +21,7 @@ const (
 const (
 	MinWidth, MaxWidth        = 320, 3840
 	MinHeight, MaxHeight      = 180, 2160
+	MaxPixels                 = 16_000_000 // width x height; capture.DefaultMaxFramePixels
 	MinFPS, MaxFPS            = 5.0, 60.0
 	MinDuration, MaxDuration  = 30 * time.Second, 2 * time.Hour
 	MaxNoise                  = 32.0
@@ -108,6 +109,9 @@ func (c Config) Validate() error {
 	}
 	if c.Height < MinHeight || c.Height > MaxHeight {
 		bad("height", between(MinHeight, MaxHeight), c.Height)
+	}
+	if int64(c.Width)*int64(c.Height) > MaxPixels {
+		bad("width", fmt.Sprintf("times height must be at most %d pixels", MaxPixels), fmt.Sprintf("%dx%d", c.Width, c.Height))
 	}
 	if !(c.FPS >= MinFPS && c.FPS <= MaxFPS) { // also rejects NaN
 		bad("fps", between(MinFPS, MaxFPS), c.FPS)

@@ -44,6 +44,9 @@ func TestValidate(t *testing.T) {
 		}), ""},
 		{"width", with(func(c *Config) { c.Width = 100 }), "scene: width must be between 320 and 3840, got 100"},
 		{"height", with(func(c *Config) { c.Height = 4000 }), "scene: height must be between 180 and 2160, got 4000"},
+		{"pixels", with(func(c *Config) { c.Width, c.Height = 8192, 8192 }), "scene: width must be between 320 and 3840, got 8192\n" +
+			"scene: height must be between 180 and 2160, got 8192\n" +
+			"scene: width times height must be at most 16000000 pixels, got 8192x8192"},
 		{"fps", with(func(c *Config) { c.FPS = 0.5 }), "scene: fps must be between 5 and 60, got 0.5"},
 		{"fps nan", with(func(c *Config) { c.FPS = math.NaN() }), "scene: fps must be between 5 and 60, got NaN"},
 		{"duration", with(func(c *Config) { c.Duration = 10 * time.Second }), "scene: duration must be between 30s and 2h0m0s, got 10s"},
@@ -91,7 +94,7 @@ func TestNewErrors(t *testing.T) {
 		{"bad config", Config{Width: 10}.WithDefaults(), ErrInvalidConfig, "scene: width must be between 320 and 3840, got 10"},
 		{"defaults not applied", Config{Seed: 1}, ErrInvalidConfig, "scene: width must be between 320 and 3840, got 0\n"},
 		{"crowded", Config{Seed: 1, Duration: 30 * time.Second, Crossings: 200}.WithDefaults(), ErrCrowded,
-			"scene: plan seed 1: too many walkers for the duration: placed "},
+			"scene: seed 1: too many walkers for the duration: placed "},
 	}
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
@@ -101,6 +104,9 @@ func TestNewErrors(t *testing.T) {
 			}
 			if !strings.HasPrefix(err.Error(), tt.want) {
 				t.Errorf("New() error = %q, want it to start with %q", err, tt.want)
+			}
+			if errors.Is(err, ErrCrowded) && !strings.HasSuffix(err.Error(), "; lower crossings (200) or visitors (8), or raise duration (30s)") {
+				t.Errorf("New() error = %q does not say which keys to change", err)
 			}
 		})
 	}

@@ -10,6 +10,7 @@
 package scene
 
 import (
+	"errors"
 	"fmt"
 	"math"
 	"sort"
@@ -83,6 +84,10 @@ func New(cfg Config) (*Scene, error) {
 	s.g = newGeom(cfg.Width, cfg.Height, s.layout)
 	s.frames = int(math.Round(cfg.Duration.Seconds() * cfg.FPS))
 	ws, err := plan(cfg, s.layout, s.g)
+	if errors.Is(err, ErrCrowded) {
+		return nil, fmt.Errorf("scene: seed %d: %w; lower crossings (%d) or visitors (%d), or raise duration (%v)",
+			cfg.Seed, err, cfg.Crossings, cfg.Visitors, cfg.Duration)
+	}
 	if err != nil {
 		return nil, fmt.Errorf("scene: plan seed %d: %w", cfg.Seed, err)
 	}

@@ -361,7 +361,7 @@ func TestRenderOrderIndependent(t *testing.T) {
 		t.Fatal(err)
 	}
 	w, h := s.Size()
-	const from, n = 400, 40
+	const from, n = 400, 16
 	sums := func(order []int, parallel bool) [n][32]byte {
 		var out [n][32]byte
 		var wg sync.WaitGroup

@@ -98,23 +98,11 @@ func (f *feed) stall(on bool) {
 	f.mu.Unlock()
 }
 
-func (f *feed) isStalled() bool {
-	f.mu.Lock()
-	defer f.mu.Unlock()
-	return f.stalled
-}
-
 // produced is the number of frame indices used so far.
 func (f *feed) produced() int {
 	f.mu.Lock()
 	defer f.mu.Unlock()
 	return f.next
-}
-
-func (f *feed) watchers() int {
-	f.mu.Lock()
-	defer f.mu.Unlock()
-	return len(f.subs)
 }
 
 func (f *feed) close() {

@@ -5,8 +5,6 @@ import (
 	"fmt"
 	"net"
 	"net/http"
-	"net/url"
-	"sync"
 	"testing"
 	"time"
 )
@@ -24,12 +22,8 @@ type MJPEGOptions struct {
 // HTTP/1.1, the way many IP cameras do. While stalled it accepts
 // connections and sends nothing.
 type MJPEGServer struct {
-	t    testing.TB
+	camera
 	opts MJPEGOptions
-	feed *feed
-	l    listener
-
-	closeOnce sync.Once
 }
 
 const boundary = "tallydframe"
@@ -44,47 +38,9 @@ func StartMJPEG(t testing.TB, o MJPEGOptions) *MJPEGServer {
 	if o.Path == "" {
 		o.Path = "/video.mjpg"
 	}
-	s := &MJPEGServer{t: t, opts: o, feed: newFeed(o.Frames, o.FPS)}
-	s.l.serve = s.serve
-	s.l.start(t)
-	t.Cleanup(s.Close)
+	s := &MJPEGServer{opts: o}
+	s.start(t, "http", o.Path, o.Frames, o.FPS, s.serve)
 	return s
-}
-
-// URL is the stream's address, without credentials.
-func (s *MJPEGServer) URL() string { return "http://" + s.l.address() + s.opts.Path }
-
-// URLWithAuth is the stream's address with user:password in it.
-func (s *MJPEGServer) URLWithAuth(user, password string) string {
-	u := &url.URL{Scheme: "http", Host: s.l.address(), Path: s.opts.Path, User: url.UserPassword(user, password)}
-	return u.String()
-}
-
-// Addr is the server's host:port.
-func (s *MJPEGServer) Addr() string { return s.l.address() }
-
-// Stop closes the listener and every connection.
-func (s *MJPEGServer) Stop() { s.l.stop() }
-
-// Restart listens again on the same port after Stop.
-func (s *MJPEGServer) Restart() { s.l.start(s.t) }
-
-// Stall stops (true) or resumes (false) sending: open connections get no
-// more parts and new ones get no answer at all.
-func (s *MJPEGServer) Stall(on bool) { s.feed.stall(on) }
-
-// FramesSent is the number of frames the camera produced so far.
-func (s *MJPEGServer) FramesSent() int { return s.feed.produced() }
-
-// Watching is the number of connections waiting for or receiving frames.
-func (s *MJPEGServer) Watching() int { return s.feed.watchers() }
-
-// Close stops the server for good; safe to call twice.
-func (s *MJPEGServer) Close() {
-	s.closeOnce.Do(func() {
-		s.l.stop()
-		s.feed.close()
-	})
 }
 
 func (s *MJPEGServer) serve(c net.Conn) {

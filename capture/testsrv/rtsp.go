@@ -31,13 +31,10 @@ type RTSPOptions struct {
 // track sent over RTP (RFC 3550, RFC 2435), interleaved in the RTSP
 // connection or over UDP, as the client asks.
 type RTSPServer struct {
-	t    testing.TB
+	camera
 	opts RTSPOptions
-	feed *feed
-	l    listener
 
 	sessionID atomic.Int64
-	closeOnce sync.Once
 
 	mu        sync.Mutex
 	transport string // of the latest SETUP
@@ -53,55 +50,16 @@ func StartRTSP(t testing.TB, o RTSPOptions) *RTSPServer {
 	if o.Path == "" {
 		o.Path = "/live"
 	}
-	s := &RTSPServer{t: t, opts: o, feed: newFeed(o.Frames, o.FPS)}
-	s.l.serve = s.serve
-	s.l.start(t)
-	t.Cleanup(s.Close)
+	s := &RTSPServer{opts: o}
+	s.start(t, "rtsp", o.Path, o.Frames, o.FPS, s.serve)
 	return s
 }
-
-// URL is the stream's address, without credentials.
-func (s *RTSPServer) URL() string { return "rtsp://" + s.l.address() + s.opts.Path }
-
-// URLWithAuth is the stream's address with user:password in it.
-func (s *RTSPServer) URLWithAuth(user, password string) string {
-	u := &url.URL{Scheme: "rtsp", Host: s.l.address(), Path: s.opts.Path, User: url.UserPassword(user, password)}
-	return u.String()
-}
-
-// Addr is the server's host:port.
-func (s *RTSPServer) Addr() string { return s.l.address() }
-
-// Stop closes the listener and every session, like a camera that lost power;
-// the frame clock pauses until a client plays again.
-func (s *RTSPServer) Stop() { s.l.stop() }
-
-// Restart listens again on the same port after Stop.
-func (s *RTSPServer) Restart() { s.l.start(s.t) }
-
-// Stall stops (true) or resumes (false) sending frames while connections
-// stay open and requests are still answered.
-func (s *RTSPServer) Stall(on bool) { s.feed.stall(on) }
-
-// FramesSent is the number of frames the camera produced so far.
-func (s *RTSPServer) FramesSent() int { return s.feed.produced() }
-
-// Playing is the number of sessions receiving frames now.
-func (s *RTSPServer) Playing() int { return s.feed.watchers() }
 
 // LastTransport is "tcp" or "udp": how the latest session asked for media.
 func (s *RTSPServer) LastTransport() string {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	return s.transport
-}
-
-// Close stops the server for good; safe to call twice.
-func (s *RTSPServer) Close() {
-	s.closeOnce.Do(func() {
-		s.l.stop()
-		s.feed.close()
-	})
 }
 
 // rtspConn is one client connection and its (single) session.

@@ -33,32 +33,25 @@ func cmdCheck(_ context.Context, args []string, stdout, _ io.Writer) error {
 		fmt.Fprintln(stdout)
 	}
 	fmt.Fprintf(stdout, "  detector %s, tracker %s\n", cfg.Detector.Kind, cfg.Tracker.Kind)
-	if cfg.Detector.Kind == "onnx" {
-		if err := printONNX(stdout, cfg); err != nil {
-			return err
-		}
+	if d, ok := rep.Detector.(*onnx.Detector); ok {
+		printONNX(stdout, d, cfg.Detector.ONNX)
 	}
 	for _, r := range cfg.Rules {
 		fmt.Fprintf(stdout, "  rule %-16s %-4s on %s\n", r.Name, r.Kind(), r.Source)
 	}
-	out := "embedded NATS server on " + fmt.Sprintf("%s:%d", cfg.Output.NATS.Embedded.Host, cfg.Output.NATS.Embedded.Port)
-	if cfg.Output.NATS.URL != "" {
-		out = "NATS at " + rep.NATS
+	n := cfg.Output.NATS
+	out := fmt.Sprintf("embedded NATS server on %s:%d", n.Embedded.Host, n.Embedded.Port)
+	if rep.NATS != "" {
+		out = fmt.Sprintf("NATS at %s (reached: %s)", rep.NATS, rep.NATSReply)
 	}
-	fmt.Fprintf(stdout, "  events to %s, subjects %s.%s.<source>.<rule>.<kind>\n", out, cfg.Output.NATS.Prefix, cfg.Site)
+	fmt.Fprintf(stdout, "  events to %s, subjects %s.%s.<source>.<rule>.<kind>\n", out, n.Prefix, cfg.Site)
 	return nil
 }
 
-// printONNX loads the ONNX model once more and prints what tallyd reads from
-// it: inputs, outputs, the layout chosen, the classes and the engine.
-func printONNX(w io.Writer, cfg *config.Config) error {
-	d, err := onnx.New(onnx.FromSite(cfg))
-	if err != nil {
-		return onnx.SiteError(cfg, err)
-	}
-	defer d.Close()
-	in := d.Info()
-	o := cfg.Detector.ONNX
+// printONNX prints what tallyd read from the ONNX model: inputs, outputs, the
+// layout chosen, the classes and the engine.
+func printONNX(w io.Writer, d *onnx.Detector, o config.ONNX) {
+	in, keeps := d.Info(), d.Classes()
 	fmt.Fprintf(w, "    model %s (ONNX IR %d, opset %d)\n", in.Model, in.IRVersion, in.Opset)
 	fmt.Fprintf(w, "    engine %s\n", in.Engine)
 	for _, t := range in.Inputs {
@@ -73,9 +66,8 @@ func printONNX(w io.Writer, cfg *config.Config) error {
 	}
 	fmt.Fprintf(w, "    input %dx%d %s, letterbox %s pad %d, %s\n", in.Width, in.Height, o.Channels, o.Letterbox.Place, o.Letterbox.Pad, batch)
 	fmt.Fprintf(w, "    layout %s, %d classes (names from %s)", in.Layout, len(in.Classes), in.NamesFrom)
-	if len(o.Classes) > 0 {
-		fmt.Fprintf(w, ", keeping %v", o.Classes)
+	if len(keeps) < len(in.Classes) {
+		fmt.Fprintf(w, ", keeping %v", keeps)
 	}
 	fmt.Fprintln(w)
-	return nil
 }

@@ -8,13 +8,12 @@ import (
 
 	"tallyd/events"
 	"tallyd/events/bus"
-	"tallyd/internal/config"
 )
 
 func cmdListen(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("listen", "listen [--url URL] [--prefix P] [--site S] [--source S] [--rule R] [--count N] [--timeout D]", stdout)
-	url := fs.String("url", fmt.Sprintf("nats://%s:%d", config.DefaultNATSHost, config.DefaultNATSPort), "NATS server")
-	prefix := fs.String("prefix", config.DefaultPrefix, "subject prefix")
+	url := fs.String("url", fmt.Sprintf("nats://%s:%d", bus.DefaultHost, bus.DefaultPort), "NATS server")
+	prefix := fs.String("prefix", bus.DefaultPrefix, "subject prefix")
 	site := fs.String("site", "", "only this site (default all)")
 	source := fs.String("source", "", "only this source (default all)")
 	rule := fs.String("rule", "", "only this rule (default all)")
@@ -39,7 +38,7 @@ func cmdListen(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	defer cancel()
 	nc, err := bus.Connect(*url, "tallyd-listen", nil)
 	if err != nil {
-		return fmt.Errorf("connect to %s: %w", config.Redact(*url), err)
+		return fmt.Errorf("connect to %s: %w", bus.RedactURL(*url), err)
 	}
 	defer nc.Close()
 	seen := 0

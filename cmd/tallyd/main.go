@@ -21,14 +21,17 @@ import (
 	"os/signal"
 	"syscall"
 
+	"tallyd/capture"
 	"tallyd/internal/config"
+	"tallyd/internal/pipeline"
 )
 
 // Exit codes.
 const (
-	exitOK       = 0
-	exitFailed   = 1 // a failure while running
-	exitBadInput = 2 // bad flags, bad site file, unreadable input: nothing started
+	exitOK         = 0
+	exitFailed     = 1 // a failure while running, events not delivered included
+	exitBadInput   = 2 // bad flags, bad site file, unreadable input: nothing started
+	exitIncomplete = 3 // stopped before the input's end, or a recording ended early
 )
 
 type command struct {
@@ -71,9 +74,12 @@ func realMain(ctx context.Context, args []string, stdout, stderr io.Writer) int 
 			return exitOK
 		case errors.Is(err, flag.ErrHelp):
 			return exitOK
-		case errors.Is(err, errUsage) || errors.Is(err, config.ErrInvalid):
+		case errors.Is(err, errUsage) || errors.Is(err, errBadFile) || errors.Is(err, config.ErrInvalid):
 			fmt.Fprintf(stderr, "tallyd %s: %v\n", c.name, err)
 			return exitBadInput
+		case errors.Is(err, errIncomplete):
+			fmt.Fprintf(stderr, "tallyd %s: %v\n", c.name, err)
+			return exitIncomplete
 		default:
 			fmt.Fprintf(stderr, "tallyd %s: %v\n", c.name, err)
 			return exitFailed
@@ -91,34 +97,59 @@ func usage(w io.Writer) {
 	for _, c := range commands {
 		fmt.Fprintf(w, "  %-8s %s\n", c.name, c.summary)
 	}
-	fmt.Fprintln(w, "\nExit codes: 0 done, 1 failed while running, 2 bad input (nothing started).")
+	fmt.Fprintln(w, "\nExit codes: 0 done, 1 failed while running (events not delivered included), 2 bad input")
+	fmt.Fprintln(w, "(nothing started), 3 incomplete (interrupted, or a recording ended early).")
 }
 
 // errUsage marks bad command-line input (exit code 2).
 var errUsage = errors.New("usage")
 
+// errBadFile marks an input file that cannot be used (exit code 2).
+var errBadFile = errors.New("bad input file")
+
+// badFile marks err as a bad input file, keeping its text.
+func badFile(err error) error { return inputError{err} }
+
+type inputError struct{ err error }
+
+func (e inputError) Error() string        { return e.err.Error() }
+func (e inputError) Unwrap() error        { return e.err }
+func (e inputError) Is(target error) bool { return target == errBadFile }
+
+// errIncomplete marks a run that stopped before the end of its input (exit
+// code 3): the counts cover only what was read.
+var errIncomplete = errors.New("incomplete")
+
 func usageErr(format string, args ...any) error {
 	return fmt.Errorf("%w: "+format, append([]any{errUsage}, args...)...)
 }
 
-// newFlags makes a flag set that prints its usage to stdout on --help and
-// returns errors instead of exiting.
-func newFlags(name, synopsis string, stdout io.Writer) *flag.FlagSet {
-	fs := flag.NewFlagSet(name, flag.ContinueOnError)
-	fs.SetOutput(io.Discard)
-	fs.Usage = func() {
-		fmt.Fprintf(stdout, "Usage: tallyd %s\n\nFlags:\n", synopsis)
-		fs.SetOutput(stdout)
-		fs.PrintDefaults()
-		fs.SetOutput(io.Discard)
-	}
-	return fs
+// flags is a command's flag set: --help prints the usage once, to stdout; a
+// bad flag is an error (exit 2) that points to --help, without the usage.
+type flags struct {
+	*flag.FlagSet
+	synopsis string
+	stdout   io.Writer
 }
 
-func parseFlags(fs *flag.FlagSet, args []string) error {
+func newFlags(name, synopsis string, stdout io.Writer) *flags {
+	fs := flag.NewFlagSet(name, flag.ContinueOnError)
+	fs.SetOutput(io.Discard)
+	fs.Usage = func() {} // printed by parseFlags, once
+	return &flags{FlagSet: fs, synopsis: synopsis, stdout: stdout}
+}
+
+func (fs *flags) printUsage() {
+	fmt.Fprintf(fs.stdout, "Usage: tallyd %s\n\nFlags:\n", fs.synopsis)
+	fs.SetOutput(fs.stdout)
+	fs.PrintDefaults()
+	fs.SetOutput(io.Discard)
+}
+
+func parseFlags(fs *flags, args []string) error {
 	if err := fs.Parse(args); err != nil {
 		if errors.Is(err, flag.ErrHelp) {
-			fs.Usage()
+			fs.printUsage()
 			return err
 		}
 		return usageErr("%v (see tallyd %s --help)", err, fs.Name())
@@ -129,21 +160,26 @@ func parseFlags(fs *flag.FlagSet, args []string) error {
 	return nil
 }
 
-// loadConfig reads the site file named by -c.
+// loadConfig reads and checks the site file named by -c.
 func loadConfig(path string) (*config.Config, error) {
 	if path == "" {
 		return nil, usageErr("-c FILE is required")
 	}
-	return config.Load(path)
+	return pipeline.Load(path)
 }
 
-// newLogger builds the process logger from the site file's log block.
+// newLogger builds the process logger from the site file's log block; the
+// lines FFmpeg prints from inside OpenCV go through it too.
 func newLogger(cfg *config.Config, stderr io.Writer) *slog.Logger {
 	var lvl slog.Level
 	_ = lvl.UnmarshalText([]byte(cfg.Log.Level))
 	opts := &slog.HandlerOptions{Level: lvl}
+	var log *slog.Logger
 	if cfg.Log.Format == "json" {
-		return slog.New(slog.NewJSONHandler(stderr, opts))
+		log = slog.New(slog.NewJSONHandler(stderr, opts))
+	} else {
+		log = slog.New(slog.NewTextHandler(stderr, opts))
 	}
-	return slog.New(slog.NewTextHandler(stderr, opts))
+	capture.SetFFmpegLogger(log)
+	return log
 }

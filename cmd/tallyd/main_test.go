@@ -16,6 +16,7 @@ import (
 	"tallyd/events"
 	"tallyd/events/bus"
 	"tallyd/internal/pipeline"
+	"tallyd/internal/testkit"
 )
 
 // cli runs tallyd in-process and returns stdout, stderr and the exit code.
@@ -88,8 +89,6 @@ func readTruth(t *testing.T, path string) map[string]events.Totals {
 	return m
 }
 
-var seeds = []int{1, 2, 3}
-
 // TestTruthBoxesCountExactly: the scene's own truth boxes, replayed through the
 // detections-file detector, the tracker and the rules, give the true totals
 // exactly — the counting logic loses and invents nothing.
@@ -102,7 +101,7 @@ func TestTruthBoxesCountExactly(t *testing.T) {
 			dir := t.TempDir()
 			site := sceneSite(t, dir, seed, "  kind: motion")
 			gt, truthPath := filepath.Join(dir, "gt.txt"), filepath.Join(dir, "truth.json")
-			out, errOut, code := cli(t, "synth", "-c", site, "--video", filepath.Join(dir, "scene.avi"), "--truth", truthPath, "--gt", gt)
+			out, errOut, code := cli(t, "synth", "-c", site, "--truth", truthPath, "--gt", gt)
 			if code != 0 {
 				t.Fatalf("synth exit %d: %s%s", code, out, errOut)
 			}
@@ -138,7 +137,7 @@ func TestMotionDetectorWithinFivePercent(t *testing.T) {
 			dir := t.TempDir()
 			site := sceneSite(t, dir, seed, "  kind: motion\n  motion: {min_area: 200}")
 			truthPath := filepath.Join(dir, "truth.json")
-			if _, e, code := cli(t, "synth", "-c", site, "--video", filepath.Join(dir, "scene.avi"), "--truth", truthPath); code != 0 {
+			if _, e, code := cli(t, "synth", "-c", site, "--truth", truthPath); code != 0 {
 				t.Fatalf("synth: %s", e)
 			}
 			truth := readTruth(t, truthPath)
@@ -204,8 +203,12 @@ output:
 			"site.yaml:8: rules[0].zone: zone edges 1 and 3 cross each other"},
 		{"missing video", strings.Replace(good, "scene: {seed: 1}", "file: gone.avi", 1),
 			`site.yaml:4: sources[0].file: cannot open "` + filepath.Join(dir, "gone.avi") + `": no such file or directory`},
+		{"class typo", strings.Replace(good, "0.5]]\n", "0.5]]\n    classes: [persn]\n", 1),
+			`site.yaml:9: rules[0].classes[0]: the motion detector never reports class "persn" (did you mean "person"?)`},
+		{"class the scene never shows", strings.Replace(strings.Replace(good, "rules:", "detector: {class: car}\nrules:", 1), "0.5]]\n", "0.5]]\n    classes: [car]\n", 1),
+			`site.yaml:10: rules[0].classes[0]: the generated scene of source walkway shows only person, never "car"`},
 		{"unreadable video", strings.Replace(good, "scene: {seed: 1}", "file: notes.avi", 1),
-			`site.yaml:4: sources[0].file: open ` + notVideo + `: not a video OpenCV can read`},
+			`site.yaml:4: sources[0].file: source walkway: open ` + notVideo + `: not a video OpenCV can read`},
 	}
 	for _, tt := range tests {
 		for _, cmd := range []string{"replay", "check", "run"} {
@@ -227,6 +230,18 @@ output:
 			})
 		}
 	}
+	// check tries an external NATS server; run and replay start anyway
+	// and retry it in the background (TestBrokerDownAtStart).
+	t.Run("broker down/check", func(t *testing.T) {
+		site := filepath.Join(dir, "broker.yaml")
+		if err := os.WriteFile(site, []byte(good+"  nats: {url: \"nats://"+testsrv.ClosedAddr(t)+"\"}\n"), 0o644); err != nil {
+			t.Fatal(err)
+		}
+		_, errOut, code := cli(t, "check", "-c", site)
+		if code != exitBadInput || !strings.Contains(errOut, "broker.yaml:11: output.nats.url: cannot reach nats://127.0.0.1:") {
+			t.Errorf("exit %d, stderr %q", code, errOut)
+		}
+	})
 	t.Run("missing site file", func(t *testing.T) {
 		_, errOut, code := cli(t, "replay", "-c", filepath.Join(dir, "nope.yaml"))
 		if code != exitBadInput || !strings.Contains(errOut, "nope.yaml: cannot read site file: no such file or directory") {
@@ -241,11 +256,17 @@ output:
 	})
 }
 
+// TestHelp: --help prints each command's usage once, to stdout; a bad flag
+// is one error line on stderr pointing to --help, with nothing on stdout.
 func TestHelp(t *testing.T) {
 	for _, c := range commands {
 		out, _, code := cli(t, c.name, "--help")
-		if code != 0 || !strings.Contains(out, "Usage: tallyd "+c.name) {
+		if code != 0 || strings.Count(out, "Usage: tallyd "+c.name) != 1 {
 			t.Errorf("%s --help: exit %d, output %q", c.name, code, out)
+		}
+		out, errOut, code := cli(t, c.name, "--no-such-flag")
+		if code != exitBadInput || out != "" || errOut != "tallyd "+c.name+": usage: flag provided but not defined: -no-such-flag (see tallyd "+c.name+" --help)\n" {
+			t.Errorf("%s --no-such-flag: exit %d, stdout %q, stderr %q", c.name, code, out, errOut)
 		}
 	}
 	if out, _, code := cli(t, "--help"); code != 0 || !strings.Contains(out, "Commands:") {
@@ -315,13 +336,7 @@ log: {level: warn}
 			"--rule", "gate", "--timeout", "60s", "--count", fmt.Sprint(want)}, &out, &errb)
 		done <- result{out.String(), errb.String(), code}
 	}()
-	deadline := time.Now().Add(10 * time.Second)
-	for srv.Subscriptions() == 0 {
-		if time.Now().After(deadline) {
-			t.Fatal("listen did not subscribe")
-		}
-		time.Sleep(10 * time.Millisecond)
-	}
+	testkit.WaitFor(t, 10*time.Second, "listen to subscribe", func() bool { return srv.Subscriptions() > 0 })
 	out, errOut, code = cli(t, "replay", "-c", site, "--summary", "json")
 	if code != 0 || lastJSON(t, out).EventsPublished != want {
 		t.Fatalf("second replay: exit %d, %s", code, errOut)
@@ -384,7 +399,7 @@ func TestTrackAndScore(t *testing.T) {
 	dir := t.TempDir()
 	site := sceneSite(t, dir, 2, "  kind: motion")
 	gt := filepath.Join(dir, "gt.txt")
-	if _, e, code := cli(t, "synth", "-c", site, "--video", filepath.Join(dir, "v.avi"), "--truth", filepath.Join(dir, "t.json"), "--gt", gt); code != 0 {
+	if _, e, code := cli(t, "synth", "-c", site, "--gt", gt); code != 0 {
 		t.Fatalf("synth: %s", e)
 	}
 	tracks := filepath.Join(dir, "tracks.txt")
@@ -534,5 +549,36 @@ func TestCheckONNX(t *testing.T) {
 		if !strings.Contains(out, want) {
 			t.Errorf("check output lacks %q:\n%s", want, out)
 		}
+	}
+}
+
+// TestReplayEndedEarly: a recording cut in half is replayed to where it
+// breaks off, and the replay says so: ended_early in the summary, exit 3.
+func TestReplayEndedEarly(t *testing.T) {
+	dir := t.TempDir()
+	scenes := filepath.Join(dir, "scene.yaml")
+	if err := os.WriteFile(scenes, []byte("site: s\nsources:\n  - {id: cam, scene: {seed: 1, width: 320, height: 180, duration: 30s, crossings: 3, visitors: 1}}\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	video := filepath.Join(dir, "cam.avi")
+	if _, e, code := cli(t, "synth", "-c", scenes, "--video", video); code != 0 {
+		t.Fatalf("synth: %s", e)
+	}
+	b := mustRead(t, video)
+	if err := os.WriteFile(video, b[:len(b)/2], 0o644); err != nil {
+		t.Fatal(err)
+	}
+	site := filepath.Join(dir, "site.yaml")
+	if err := os.WriteFile(site, []byte("site: s\nsources:\n  - {id: cam, file: cam.avi}\noutput: {nats: {embedded: {port: 0}}}\nlog: {level: error}\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	out, errOut, code := cli(t, "replay", "-c", site, "--summary", "json")
+	s := lastJSON(t, out)
+	t.Logf("exit %d, read %d; %s", code, s.FramesRead, errOut)
+	if code != exitIncomplete || len(s.EndedEarly) != 1 || s.EndedEarly[0] != "cam" || s.FramesRead == 0 || s.FramesRead >= 300 {
+		t.Errorf("exit %d, summary %+v: want exit 3 and cam ended early", code, s)
+	}
+	if !strings.Contains(errOut, "recording ended before its declared length: cam") {
+		t.Errorf("stderr %q", errOut)
 	}
 }

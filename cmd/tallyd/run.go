@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"strings"
 	"syscall"
 	"time"
 
@@ -32,11 +33,14 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 	}
 	defer p.Close()
 	log.Info("running", "site", cfg.Site, "sources", len(cfg.Sources), "nats", p.NATSURL())
+	start := time.Now()
 	runErr := p.Run(ctx)
 	s := p.Summary()
 	log.Info("stopped", "frames_read", s.FramesRead, "frames_processed", s.FramesProcessed,
-		"frames_dropped", s.FramesDropped, "events_published", s.EventsPublished)
-	return runErr
+		"frames_dropped", s.FramesDropped, "events_published", s.EventsPublished, "events_failed", s.EventsFailed)
+	printTable(stdout, s, time.Since(start))
+	// A daemon stopped by a signal is a normal stop, not an incomplete run.
+	return outcome(runErr, s, false)
 }
 
 func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -76,20 +80,48 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		}
 		fmt.Fprintln(stdout, string(b))
 	} else {
-		printTable(stdout, s, p.Truth(), elapsed)
+		printTable(stdout, s, elapsed)
 	}
-	return runErr
+	return outcome(runErr, s, true)
+}
+
+// outcome is the error a run ends with: a processing error, then events not
+// delivered (exit 1), then, for replays, input not read to its end (exit 3).
+func outcome(runErr error, s pipeline.Summary, replay bool) error {
+	switch {
+	case runErr != nil:
+		return runErr
+	case s.EventsFailed > 0:
+		return fmt.Errorf("%d events could not be published (see the log)", s.EventsFailed)
+	case len(s.EndedEarly) > 0:
+		return fmt.Errorf("%w: recording ended before its declared length: %s", errIncomplete, strings.Join(s.EndedEarly, ", "))
+	case replay && s.Interrupted:
+		return fmt.Errorf("%w: stopped before the end of the input; counts cover %d frames read", errIncomplete, s.FramesRead)
+	}
+	return nil
 }
 
 // printTable writes the counts, beside the truth for generated sources.
-func printTable(w io.Writer, s pipeline.Summary, truth map[string]events.Totals, elapsed time.Duration) {
+func printTable(w io.Writer, s pipeline.Summary, elapsed time.Duration) {
 	fps := 0.0
 	if elapsed > 0 {
 		fps = float64(s.FramesProcessed) / elapsed.Seconds()
 	}
-	fmt.Fprintf(w, "frames read %d, processed %d, dropped %d; events published %d\n",
-		s.FramesRead, s.FramesProcessed, s.FramesDropped, s.EventsPublished)
-	fmt.Fprintf(w, "%.1f s, %.1f frames/s, peak RSS %.0f MiB\n\n", elapsed.Seconds(), fps, peakRSSMiB())
+	fmt.Fprintf(w, "frames read %d, processed %d, dropped %d; events published %d", s.FramesRead, s.FramesProcessed,
+		s.FramesDropped, s.EventsPublished)
+	if s.EventsFailed > 0 {
+		fmt.Fprintf(w, ", not published %d", s.EventsFailed)
+	}
+	fmt.Fprintln(w)
+	fmt.Fprintf(w, "%.1f s, %.1f frames/s, peak RSS %.0f MiB\n", elapsed.Seconds(), fps, peakRSSMiB())
+	if s.Interrupted {
+		fmt.Fprintln(w, "interrupted: the counts cover only the frames read before the stop")
+	}
+	if len(s.EndedEarly) > 0 {
+		fmt.Fprintf(w, "ended early (shorter than the container declares): %s\n", strings.Join(s.EndedEarly, ", "))
+	}
+	fmt.Fprintln(w)
+	truth := s.Truth
 	if truth != nil {
 		fmt.Fprintf(w, "%-18s %-14s %8s %8s %8s\n", "rule", "count", "counted", "truth", "error")
 	} else {
@@ -125,10 +157,11 @@ type metric struct {
 	value int
 }
 
-// metrics lists a rule's counts in the order the summary JSON uses.
+// metrics lists a rule's counts under the names the events and the summary
+// JSON use.
 func metrics(t events.Totals) []metric {
-	if t.Kind == "zone" {
-		return []metric{{"entries", t.Entries}, {"exits", t.Exits}, {"dwell_alerts", t.DwellAlerts}, {"max_occupancy", t.MaxOccupancy}}
+	if t.Kind == events.RuleZone {
+		return []metric{{"enter", t.Enter}, {"exit", t.Exit}, {"dwell", t.Dwell}, {"max_occupancy", t.MaxOccupancy}}
 	}
 	return []metric{{"in", t.In}, {"out", t.Out}}
 }

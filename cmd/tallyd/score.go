@@ -3,15 +3,15 @@ package main
 import (
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
 
-	"tallyd/internal/config"
 	"tallyd/internal/motfmt"
 	"tallyd/track/eval"
 )
 
-func cmdScore(_ context.Context, args []string, stdout, _ io.Writer) error {
+func cmdScore(ctx context.Context, args []string, stdout, _ io.Writer) error {
 	fs := newFlags("score", "score --truth gt.txt --tracks tracks.txt [--iou 0.5] [--rules auto|mot15|mot17|mot20] [--json]", stdout)
 	truthPath := fs.String("truth", "", "ground truth, MOTChallenge text format (.gz read directly)")
 	tracksPath := fs.String("tracks", "", "tracker output, MOTChallenge text format (.gz read directly)")
@@ -25,17 +25,17 @@ func cmdScore(_ context.Context, args []string, stdout, _ io.Writer) error {
 	if *truthPath == "" || *tracksPath == "" {
 		return usageErr("--truth and --tracks are required")
 	}
-	gt, err := motfmt.ReadFile(*truthPath)
+	gt, err := motfmt.ReadFileContext(ctx, *truthPath)
 	if err != nil {
-		return fmt.Errorf("%w: %v", config.ErrInvalid, err)
+		return inputOrStop(err)
 	}
-	tr, err := motfmt.ReadFile(*tracksPath)
+	tr, err := motfmt.ReadFileContext(ctx, *tracksPath)
 	if err != nil {
-		return fmt.Errorf("%w: %v", config.ErrInvalid, err)
+		return inputOrStop(err)
 	}
-	m, err := eval.Evaluate(gt, tr, eval.Options{IoU: *iou, Rules: eval.Rules(*rules), Frames: *frames})
+	m, err := eval.EvaluateContext(ctx, gt, tr, eval.Options{IoU: *iou, Rules: eval.Rules(*rules), Frames: *frames})
 	if err != nil {
-		return fmt.Errorf("%w: %v", config.ErrInvalid, err)
+		return inputOrStop(err)
 	}
 	if *asJSON {
 		b, err := json.Marshal(m)
@@ -47,4 +47,13 @@ func cmdScore(_ context.Context, args []string, stdout, _ io.Writer) error {
 	}
 	fmt.Fprint(stdout, m.Table())
 	return nil
+}
+
+// inputOrStop classifies a read or evaluation error: stopped by a signal
+// (exit 3) or a bad input file (exit 2).
+func inputOrStop(err error) error {
+	if errors.Is(err, context.Canceled) || errors.Is(err, context.DeadlineExceeded) {
+		return fmt.Errorf("%w: %v", errIncomplete, err)
+	}
+	return badFile(err)
 }

@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"strings"
 
 	"gocv.io/x/gocv"
 
@@ -16,17 +17,17 @@ import (
 )
 
 func cmdSynth(ctx context.Context, args []string, stdout, _ io.Writer) error {
-	fs := newFlags("synth", "synth -c FILE [--source ID] --video OUT.avi --truth OUT.json [--gt OUT.txt]", stdout)
+	fs := newFlags("synth", "synth -c FILE [--source ID] [--video OUT.avi] [--truth OUT.json] [--gt OUT.txt]", stdout)
 	cfgPath := fs.String("c", "", "site file (YAML) with at least one generated scene source")
 	sourceID := fs.String("source", "", "generated source to write (default: the first one)")
 	videoOut := fs.String("video", "", "video file to write (Motion-JPEG in AVI)")
 	truthOut := fs.String("truth", "", "JSON file for the true totals per rule (same shape as replay's summary rules)")
-	gtOut := fs.String("gt", "", "optional ground-truth boxes with identities, MOTChallenge text format")
+	gtOut := fs.String("gt", "", "ground-truth boxes with identities, MOTChallenge text format")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
-	if *videoOut == "" || *truthOut == "" {
-		return usageErr("--video and --truth are required")
+	if *videoOut == "" && *truthOut == "" && *gtOut == "" {
+		return usageErr("name at least one of --video, --truth and --gt")
 	}
 	cfg, err := loadConfig(*cfgPath)
 	if err != nil {
@@ -36,33 +37,36 @@ func cmdSynth(ctx context.Context, args []string, stdout, _ io.Writer) error {
 	if err != nil {
 		return err
 	}
-	sc, err := scene.New(config.SceneConfig(*src.Scene))
+	sc, err := scene.New(pipeline.SceneConfig(*src.Scene))
 	if err != nil {
 		return err
 	}
 	w, h := sc.Size()
-	lines, zones := pipeline.RulesFor(cfg, src.ID, w, h)
-	truth := pipeline.SceneTruth(sc, lines, zones)
-	if err := writeVideo(ctx, sc, *videoOut); err != nil {
-		return err
+	var wrote []string
+	if *videoOut != "" {
+		if err := writeVideo(ctx, sc, *videoOut); err != nil {
+			return err
+		}
+		wrote = append(wrote, fmt.Sprintf("%s (%dx%d, %d frames at %.0f fps)", *videoOut, w, h, sc.Frames(), sc.FPS()))
 	}
-	b, err := json.MarshalIndent(truth, "", "  ")
-	if err != nil {
-		return err
-	}
-	if err := os.WriteFile(*truthOut, append(b, '\n'), 0o644); err != nil {
-		return fmt.Errorf("write truth: %w", err)
+	if *truthOut != "" {
+		lines, zones := pipeline.RulesFor(cfg, src.ID, w, h)
+		b, err := json.MarshalIndent(pipeline.SceneTruth(sc, lines, zones), "", "  ")
+		if err != nil {
+			return err
+		}
+		if err := os.WriteFile(*truthOut, append(b, '\n'), 0o644); err != nil {
+			return fmt.Errorf("write truth: %w", err)
+		}
+		wrote = append(wrote, *truthOut)
 	}
 	if *gtOut != "" {
 		if err := writeGT(sc, *gtOut); err != nil {
 			return err
 		}
+		wrote = append(wrote, *gtOut)
 	}
-	fmt.Fprintf(stdout, "wrote %s (%dx%d, %d frames at %.0f fps), %s", *videoOut, w, h, sc.Frames(), sc.FPS(), *truthOut)
-	if *gtOut != "" {
-		fmt.Fprintf(stdout, ", %s", *gtOut)
-	}
-	fmt.Fprintln(stdout)
+	fmt.Fprintf(stdout, "wrote %s\n", strings.Join(wrote, ", "))
 	return nil
 }
 
@@ -95,8 +99,8 @@ func writeVideo(ctx context.Context, sc *scene.Scene, path string) error {
 		return err
 	}
 	for i := 0; i < sc.Frames(); i++ {
-		if err := ctx.Err(); err != nil {
-			return err
+		if ctx.Err() != nil {
+			return fmt.Errorf("%w: stopped at frame %d of %d; %s holds only those", errIncomplete, i, sc.Frames(), path)
 		}
 		sc.Render(i, buf)
 		if err := vw.Write(m); err != nil {

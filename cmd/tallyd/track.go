@@ -10,13 +10,12 @@ import (
 	"time"
 
 	"tallyd/detect"
-	"tallyd/internal/config"
 	"tallyd/internal/motfmt"
 	"tallyd/track"
 )
 
 // trackerFlags are the tracker settings a command line can change; the rest
-// keep their defaults.
+// keep the tracker's defaults.
 type trackerFlags struct {
 	kind                                  string
 	high, low, newTrack, matchIoU, lowIoU float64
@@ -28,56 +27,49 @@ type trackerFlags struct {
 }
 
 func (tf *trackerFlags) register(fs *flag.FlagSet) {
-	d := track.DefaultByteTrackConfig()
-	fs.StringVar(&tf.kind, "tracker", "bytetrack", "bytetrack or baseline (the first-version IoU tracker)")
-	fs.Float64Var(&tf.high, "high-score", d.HighScore, "bytetrack: detections at or above this are associated first")
-	fs.Float64Var(&tf.low, "low-score", d.LowScore, "bytetrack: detections below this are ignored")
-	fs.Float64Var(&tf.newTrack, "new-track-score", d.NewTrackScore, "bytetrack: least score to start a track")
-	fs.Float64Var(&tf.matchIoU, "match-iou", d.MatchIoU, "bytetrack: least IoU with the predicted box (first stage)")
-	fs.Float64Var(&tf.lowIoU, "low-match-iou", d.LowMatchIoU, "bytetrack: least IoU for low-score detections (second stage)")
-	fs.IntVar(&tf.birth, "birth-hits", d.BirthHits, "matched frames in a row before a track is confirmed")
-	fs.DurationVar(&tf.lostTTL, "lost-ttl", d.LostTTL, "bytetrack: how long a lost track is kept for re-finding")
+	d := track.DefaultSettings()
+	b, i := d.ByteTrack, d.Baseline
+	fs.StringVar(&tf.kind, "tracker", string(d.Kind), "bytetrack or baseline (the first-version IoU tracker)")
+	fs.Float64Var(&tf.high, "high-score", b.HighScore, "bytetrack: detections at or above this are associated first")
+	fs.Float64Var(&tf.low, "low-score", b.LowScore, "bytetrack: detections below this are ignored")
+	fs.Float64Var(&tf.newTrack, "new-track-score", b.NewTrackScore, "bytetrack: least score to start a track")
+	fs.Float64Var(&tf.matchIoU, "match-iou", b.MatchIoU, "bytetrack: least IoU with the predicted box (first stage)")
+	fs.Float64Var(&tf.lowIoU, "low-match-iou", b.LowMatchIoU, "bytetrack: least IoU for low-score detections (second stage)")
+	fs.IntVar(&tf.birth, "birth-hits", b.BirthHits, fmt.Sprintf("matched frames in a row before a track is confirmed (baseline default %d)", i.BirthHits))
+	fs.DurationVar(&tf.lostTTL, "lost-ttl", b.LostTTL, "bytetrack: how long a lost track is kept for re-finding")
 	fs.DurationVar(&tf.lostOut, "lost-output", track.DefaultLostOutput, "write lost tracks at their predicted box this long after their last detection")
-	fs.Float64Var(&tf.minIoU, "min-iou", track.DefaultMinIoU, "baseline: least IoU to link a detection")
-	fs.IntVar(&tf.maxMisses, "max-misses", track.DefaultMaxMisses, "baseline: frames a track may miss before it ends")
+	fs.Float64Var(&tf.minIoU, "min-iou", i.MinIoU, "baseline: least IoU to link a detection")
+	fs.IntVar(&tf.maxMisses, "max-misses", i.MaxMisses, "baseline: frames a track may miss before it ends")
 	fs.BoolVar(&tf.perClass, "per-class", false, "only link detections of the same class")
 }
 
-type frameTracker interface {
-	Update(ts time.Duration, dets []detect.Detection) track.Result
-}
-
-func (tf *trackerFlags) build(birthSet bool) (frameTracker, error) {
-	switch tf.kind {
-	case "bytetrack":
-		c := track.DefaultByteTrackConfig()
-		c.HighScore, c.LowScore, c.NewTrackScore = tf.high, tf.low, tf.newTrack
-		c.MatchIoU, c.LowMatchIoU, c.BirthHits, c.LostTTL, c.PerClass = tf.matchIoU, tf.lowIoU, tf.birth, tf.lostTTL, tf.perClass
-		if err := c.Validate(); err != nil {
-			return nil, usageErr("tracker settings: %v", err)
-		}
-		return track.NewByteTrack(c), nil
-	case "baseline":
-		c := track.IoUConfig{MinIoU: tf.minIoU, BirthHits: track.DefaultBirthHits, MaxMisses: tf.maxMisses, PerClass: tf.perClass}
-		if birthSet {
-			c.BirthHits = tf.birth
-		}
-		if err := c.Validate(); err != nil {
-			return nil, usageErr("tracker settings: %v", err)
-		}
-		return track.NewIoU(c), nil
+// settings are the tracker defaults with the flags applied; birthSet says
+// whether --birth-hits was given (its default is bytetrack's).
+func (tf *trackerFlags) settings(birthSet bool) (track.Settings, error) {
+	s := track.DefaultSettings()
+	s.Kind = track.Kind(tf.kind)
+	b := &s.ByteTrack
+	b.HighScore, b.LowScore, b.NewTrackScore = tf.high, tf.low, tf.newTrack
+	b.MatchIoU, b.LowMatchIoU, b.BirthHits, b.LostTTL, b.PerClass = tf.matchIoU, tf.lowIoU, tf.birth, tf.lostTTL, tf.perClass
+	i := &s.Baseline
+	i.MinIoU, i.MaxMisses, i.PerClass = tf.minIoU, tf.maxMisses, tf.perClass
+	if birthSet {
+		i.BirthHits = tf.birth
 	}
-	return nil, usageErr("--tracker: want bytetrack or baseline (found %q)", tf.kind)
+	if err := s.Validate(); err != nil {
+		return s, usageErr("tracker settings: %v", err)
+	}
+	return s, nil
 }
 
-func cmdTrack(_ context.Context, args []string, stdout, _ io.Writer) error {
+func cmdTrack(ctx context.Context, args []string, stdout, _ io.Writer) error {
 	fs := newFlags("track", "track --detections det.txt --out tracks.txt [--fps 30] [tracker flags]", stdout)
 	detPath := fs.String("detections", "", "detections in the MOTChallenge text format (.gz read directly)")
 	out := fs.String("out", "", "tracks file to write, MOTChallenge text format")
 	fps := fs.Float64("fps", 30, "frame rate of the sequence (timestamps for the motion model)")
-	class := fs.String("class", config.DefaultClass, "class name given to the detections")
+	class := fs.String("class", detect.DefaultClass, "class name given to the detections")
 	var tf trackerFlags
-	tf.register(fs)
+	tf.register(fs.FlagSet)
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -86,20 +78,27 @@ func cmdTrack(_ context.Context, args []string, stdout, _ io.Writer) error {
 	if *detPath == "" || *out == "" {
 		return usageErr("--detections and --out are required")
 	}
-	if !(*fps > 0) {
-		return usageErr("--fps: must be positive (found %v)", *fps)
+	if !(*fps > 0 && *fps <= 1000) {
+		return usageErr("--fps: must be within (0, 1000] (found %v)", *fps)
 	}
-	tr, err := tf.build(birthSet)
+	set, err := tf.settings(birthSet)
 	if err != nil {
 		return err
 	}
-	rows, err := motfmt.ReadFile(*detPath)
+	tr, err := set.New()
 	if err != nil {
-		return fmt.Errorf("%w: %v", config.ErrInvalid, err)
+		return usageErr("tracker settings: %v", err)
+	}
+	rows, err := motfmt.ReadFileContext(ctx, *detPath)
+	if err != nil {
+		return inputOrStop(err)
 	}
 	fd := detect.NewFileDetector(rows, *class, 0)
 	var outRows []motfmt.Row
 	for f := 1; f <= fd.Frames(); f++ {
+		if f%1024 == 0 && ctx.Err() != nil {
+			return fmt.Errorf("%w: stopped at frame %d of %d; %s not written", errIncomplete, f, fd.Frames(), *out)
+		}
 		ts := time.Duration(float64(f-1) / *fps * float64(time.Second))
 		res := tr.Update(ts, fd.Frame(f))
 		outRows = append(outRows, track.OutputRows(f, ts, res, tf.lostOut)...)
@@ -112,7 +111,7 @@ func cmdTrack(_ context.Context, args []string, stdout, _ io.Writer) error {
 		ids[r.ID] = true
 	}
 	fmt.Fprintf(stdout, "%d frames, %d detections in, %d track boxes out, %d tracks (%s) -> %s\n",
-		fd.Frames(), len(rows), len(outRows), len(ids), tf.kind, *out)
+		fd.Frames(), len(rows), len(outRows), len(ids), set.Kind, *out)
 	return nil
 }
 

@@ -56,7 +56,10 @@ func New(cfg Config) *Detector {
 	return d
 }
 
-// Detect finds moving regions in each frame of the batch.
+// Detect finds moving regions in each frame of the batch. An error OpenCV
+// raises in the background model is returned, naming the frame. Frames
+// should be within capture.DefaultMaxFramePixels: OpenCV errors in the
+// morphology and contour steps (gocv) cannot be caught and end the process.
 func (d *Detector) Detect(ctx context.Context, batch []*capture.Frame) ([][]detect.Detection, error) {
 	out := make([][]detect.Detection, len(batch))
 	for i, f := range batch {
@@ -72,25 +75,29 @@ func (d *Detector) Detect(ctx context.Context, batch []*capture.Frame) ([][]dete
 	return out, nil
 }
 
-func (d *Detector) stateFor(source string) *state {
+func (d *Detector) stateFor(source string) (*state, error) {
 	d.mu.Lock()
 	defer d.mu.Unlock()
 	s, ok := d.sources[source]
 	if !ok {
-		s = &state{
-			bg: newMOG2(d.cfg.History, d.cfg.VarThreshold, true),
-			fg: gocv.NewMat(),
+		bg, err := newMOG2(d.cfg.History, d.cfg.VarThreshold, true)
+		if err != nil {
+			return nil, fmt.Errorf("motion detector: source %s: %w", source, err)
 		}
+		s = &state{bg: bg, fg: gocv.NewMat()}
 		d.sources[source] = s
 	}
-	return s
+	return s, nil
 }
 
 func (d *Detector) detectOne(f *capture.Frame) ([]detect.Detection, error) {
 	if f.Mat.Empty() || f.Mat.Type() != gocv.MatTypeCV8UC3 {
 		return nil, fmt.Errorf("motion detector: frame %d of %s is empty or not 8-bit BGR", f.Seq, f.Source)
 	}
-	s := d.stateFor(f.Source)
+	s, err := d.stateFor(f.Source)
+	if err != nil {
+		return nil, err
+	}
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	rate := d.cfg.LearningRate
@@ -98,7 +105,9 @@ func (d *Detector) detectOne(f *capture.Frame) ([]detect.Detection, error) {
 		rate = -1
 	}
 	s.frames++
-	s.bg.apply(f.Mat, &s.fg, rate)
+	if err := s.bg.apply(f.Mat, &s.fg, rate); err != nil {
+		return nil, fmt.Errorf("motion detector: frame %d of %s: %w", f.Seq, f.Source, err)
+	}
 	// Shadows are marked 127 by MOG2; keep only confident foreground.
 	gocv.Threshold(s.fg, &s.fg, 200, 255, gocv.ThresholdBinary)
 	if d.cfg.OpenKernel > 0 {
@@ -129,7 +138,7 @@ func (d *Detector) Forget(source string) {
 	d.mu.Unlock()
 	if ok {
 		s.mu.Lock()
-		s.bg.close()
+		_ = s.bg.close()
 		_ = s.fg.Close()
 		s.mu.Unlock()
 	}

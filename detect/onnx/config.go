@@ -59,8 +59,7 @@ const (
 	NMSNone   NMSKind = "none"
 )
 
-// Config configures one ONNX detector. Paths are used as given (FromSite
-// resolves them against the site file's folder).
+// Config configures one ONNX detector. Paths are used as given.
 type Config struct {
 	Model  string // .onnx file
 	Names  string // class names file, one per line; "" = model metadata, else class0, class1, ...

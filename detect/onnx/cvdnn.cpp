@@ -21,8 +21,8 @@ static void set_err(char** err, const char* msg) {
 }
 
 TallydDNN tallyd_dnn_open(const char* path, const char** out_names, int n_out, char** err) {
+    tallyd_dnn* h = new tallyd_dnn;
     try {
-        tallyd_dnn* h = new tallyd_dnn;
         h->net = cv::dnn::readNetFromONNX(path);
         if (h->net.empty()) {
             delete h;
@@ -38,6 +38,7 @@ TallydDNN tallyd_dnn_open(const char* path, const char** out_names, int n_out, c
     } catch (...) {
         set_err(err, "unknown C++ exception");
     }
+    delete h;
     return NULL;
 }
 

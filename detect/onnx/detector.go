@@ -18,12 +18,13 @@ import (
 // for concurrent use: preparation runs on the callers' goroutines, inference
 // one batch at a time.
 type Detector struct {
-	info Info
-	pre  *preproc
-	dec  *decoder
-	post *post
-	bufs sync.Pool // *[]float32 of pre.size() values
-	rec  recorder
+	info  Info
+	emits []string // class names the detector can report (the allow-list, else all)
+	pre   *preproc
+	dec   *decoder
+	post  *post
+	bufs  sync.Pool // *[]float32 of pre.size() values
+	rec   recorder
 
 	mu     sync.Mutex // guards the fields below; held for a whole inference + decode
 	eng    engine
@@ -94,6 +95,10 @@ func New(cfg Config) (*Detector, error) {
 	}
 	d.info = Info{Model: cfg.Model, Inputs: mi.Inputs, Outputs: mi.Outputs, Width: w, Height: h, Batch: batch,
 		Layout: plan.Layout, Classes: names, NamesFrom: namesFrom, Opset: mi.Opset, IRVersion: mi.IRVersion}
+	d.emits = names
+	if len(cfg.Classes) > 0 {
+		d.emits = append([]string(nil), cfg.Classes...)
+	}
 	d.pre = newPreproc(cfg, w, h)
 	d.dec = newDecoder(plan, w, h, classes, thr)
 	d.post = &post{names: names, nms: cfg.NMS, iou: cfg.IoU, classAware: cfg.ClassAware,
@@ -222,6 +227,10 @@ func namesSource(from string) string {
 
 // Info describes the loaded model and engine.
 func (d *Detector) Info() Info { return d.info }
+
+// Classes names every class the detector can report: the allow-list when one
+// is set, else every class of the model.
+func (d *Detector) Classes() []string { return d.emits }
 
 // Stats reports what the detector measured so far.
 func (d *Detector) Stats() Stats { return d.rec.snapshot() }

@@ -11,6 +11,7 @@ import "C"
 import (
 	"errors"
 	"fmt"
+	"strings"
 	"unsafe"
 )
 
@@ -114,5 +115,5 @@ func takeCString(s *C.char) string {
 		return "unknown error"
 	}
 	defer C.free(unsafe.Pointer(s))
-	return C.GoString(s)
+	return strings.TrimSpace(C.GoString(s))
 }

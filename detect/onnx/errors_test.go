@@ -8,8 +8,6 @@ import (
 	"strings"
 	"sync"
 	"testing"
-
-	"tallyd/internal/config"
 )
 
 // TestSetupErrors checks each start-up error exactly: it names the setting,
@@ -165,25 +163,5 @@ func TestResolveLibrary(t *testing.T) {
 	t.Setenv(ORTLibEnv, "/env/libonnxruntime.so.1")
 	if p, from, err := ResolveLibrary(""); p != "/env/libonnxruntime.so.1" || from != ORTLibEnv || err != nil {
 		t.Errorf("env: %q %q %v", p, from, err)
-	}
-}
-
-// TestSiteError: start-up errors are located in the site file like every
-// other bad input (config.ErrInvalid, file:line: key: ...).
-func TestSiteError(t *testing.T) {
-	model, err := filepath.Abs(fixture("bad-layout.onnx"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	site := "site: s\nsources:\n  - id: a\n    scene: {seed: 1}\ndetector:\n  kind: onnx\n  onnx:\n    model: " + model + "\n    engine: opencv\n"
-	cfg, err := config.Parse("site.yaml", []byte(site))
-	if err != nil {
-		t.Fatal(err)
-	}
-	_, err = New(FromSite(cfg))
-	err = SiteError(cfg, err)
-	want := `site.yaml:7: detector.onnx.layout: "` + model + `": output shapes output [batch,10] fit none of the supported layouts: ` + layoutHelp
-	if !errors.Is(err, config.ErrInvalid) || err.Error() != want {
-		t.Fatalf("error\n got: %v\nwant: %s", err, want)
 	}
 }

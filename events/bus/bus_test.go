@@ -1,7 +1,6 @@
 package bus
 
 import (
-	"bytes"
 	"context"
 	"encoding/json"
 	"errors"
@@ -14,37 +13,8 @@ import (
 	"github.com/nats-io/nats.go"
 
 	"tallyd/events"
+	"tallyd/internal/testkit"
 )
-
-// eventually polls cond until it holds or the deadline passes.
-func eventually(t *testing.T, timeout time.Duration, what string, cond func() bool) {
-	t.Helper()
-	deadline := time.Now().Add(timeout)
-	for !cond() {
-		if time.Now().After(deadline) {
-			t.Fatalf("timed out after %s waiting for %s", timeout, what)
-		}
-		time.Sleep(5 * time.Millisecond)
-	}
-}
-
-// syncBuffer is a log sink safe for the connection's callback goroutines.
-type syncBuffer struct {
-	mu  sync.Mutex
-	buf bytes.Buffer
-}
-
-func (b *syncBuffer) Write(p []byte) (int, error) {
-	b.mu.Lock()
-	defer b.mu.Unlock()
-	return b.buf.Write(p)
-}
-
-func (b *syncBuffer) String() string {
-	b.mu.Lock()
-	defer b.mu.Unlock()
-	return b.buf.String()
-}
 
 func startServer(t *testing.T) *Embedded {
 	t.Helper()
@@ -66,8 +36,8 @@ func connect(t *testing.T, url string) *nats.Conn {
 	return nc
 }
 
-func testEvent(site, source, rule, kind string, track int64) events.Event {
-	types := map[string]string{"in": events.TypeLineIn, "out": events.TypeLineOut, "enter": events.TypeZoneEnter, "exit": events.TypeZoneExit, "dwell": events.TypeZoneDwell}
+func testEvent(site, source, rule string, kind events.Kind, track int64) events.Event {
+	types := map[events.Kind]string{"in": events.TypeLineIn, "out": events.TypeLineOut, "enter": events.TypeZoneEnter, "exit": events.TypeZoneExit, "dwell": events.TypeZoneDwell}
 	return events.Event{
 		SpecVersion: events.SpecVersion, ID: events.EventID(site, source, rule, kind, track, 1),
 		Source: events.EventSource(site, source), Type: types[kind], Subject: rule,
@@ -142,7 +112,7 @@ func TestPublishSubscribeExactlyN(t *testing.T) {
 
 	pub := NewPublisher(pubConn, "tallyd")
 	const n = 300
-	kinds := []string{"in", "out", "enter", "exit", "dwell"}
+	kinds := []events.Kind{"in", "out", "enter", "exit", "dwell"}
 	for i := range n {
 		ev := testEvent("depot", fmt.Sprintf("cam-%d", i%3), fmt.Sprintf("rule_%d", i%4), kinds[i%5], int64(i))
 		if err := pub.Publish(context.Background(), ev); err != nil {
@@ -152,7 +122,7 @@ func TestPublishSubscribeExactlyN(t *testing.T) {
 	if err := pub.Flush(5 * time.Second); err != nil {
 		t.Fatal(err)
 	}
-	eventually(t, 10*time.Second, "all events", func() bool { got, _ := c.count(); return got >= n })
+	testkit.WaitFor(t, 10*time.Second, "all events", func() bool { got, _ := c.count(); return got >= n })
 	if err := pub.Close(); err != nil {
 		t.Fatal(err)
 	}
@@ -210,7 +180,7 @@ func TestSubscribeFilter(t *testing.T) {
 		t.Fatal(err)
 	}
 	want++
-	eventually(t, 10*time.Second, "the last event", func() bool { got, _ := c.count(); return got >= want })
+	testkit.WaitFor(t, 10*time.Second, "the last event", func() bool { got, _ := c.count(); return got >= want })
 	c.mu.Lock()
 	defer c.mu.Unlock()
 	if len(c.got) != want {
@@ -236,7 +206,7 @@ func TestSubscribeMalformed(t *testing.T) {
 	// Valid event on a subject that disagrees with its data.
 	must(t, pubConn.Publish("tallyd.depot.cam-2.door.in", raw))
 	must(t, NewPublisher(pubConn, "tallyd").Publish(context.Background(), good))
-	eventually(t, 10*time.Second, "three messages", func() bool { g, b := c.count(); return g+b >= 3 })
+	testkit.WaitFor(t, 10*time.Second, "three messages", func() bool { g, b := c.count(); return g+b >= 3 })
 	c.mu.Lock()
 	if len(c.got) != 1 || len(c.bad) != 2 {
 		t.Fatalf("got %d events and %d malformed, want 1 and 2", len(c.got), len(c.bad))

@@ -9,6 +9,15 @@ import (
 	"time"
 
 	"github.com/nats-io/nats.go"
+
+	"tallyd/internal/repeat"
+)
+
+// Defaults of a tallyd NATS setup.
+const (
+	DefaultHost   = "127.0.0.1" // the embedded server listens on loopback only
+	DefaultPort   = 4222        // the NATS protocol's registered port (common practice)
+	DefaultPrefix = "tallyd"    // first subject token
 )
 
 // Reconnect policy: wait minBackoff before the first attempt after a
@@ -33,15 +42,22 @@ func backoff(n int) time.Duration {
 
 // Connect opens a NATS connection named name that reconnects forever with a
 // capped exponential back-off and buffers publications while disconnected.
-// The first connection must succeed. Disconnects, reconnects and
-// asynchronous errors are logged on log (nil discards them) with credentials
-// removed from URLs. The returned error does not repeat the URL.
-func Connect(rawURL, name string, log *slog.Logger) (*nats.Conn, error) {
+// The first connection must succeed unless RetryFirst is given.
+// Disconnects, reconnects and asynchronous errors are logged on log (nil
+// discards them) with credentials removed from URLs. The returned error does
+// not repeat the URL.
+func Connect(rawURL, name string, log *slog.Logger, opts ...Option) (*nats.Conn, error) {
 	if log == nil {
 		log = slog.New(slog.DiscardHandler)
 	}
+	var o options
+	for _, f := range opts {
+		f(&o)
+	}
 	log = log.With("component", "nats")
+	fails := repeat.New(log, "nats server not reachable; retrying", repeat.DefaultPeriod)
 	nc, err := nats.Connect(rawURL,
+		nats.RetryOnFailedConnect(o.retryFirst),
 		nats.Name(name),
 		nats.MaxReconnects(-1),
 		nats.CustomReconnectDelay(func(n int) time.Duration {
@@ -56,10 +72,17 @@ func Connect(rawURL, name string, log *slog.Logger) (*nats.Conn, error) {
 			log.Warn("nats disconnected", "url", RedactURL(c.ConnectedUrl()), "err", err)
 		}),
 		nats.ReconnectHandler(func(c *nats.Conn) {
+			fails.Flush()
+			fails.Reset()
 			log.Info("nats reconnected", "url", RedactURL(c.ConnectedUrl()))
 		}),
+		nats.ConnectHandler(func(c *nats.Conn) { // the first connection (at once, or after retrying)
+			fails.Flush()
+			fails.Reset()
+			log.Info("nats connected", "url", RedactURL(c.ConnectedUrl()), "name", name)
+		}),
 		nats.ReconnectErrHandler(func(c *nats.Conn, err error) {
-			log.Debug("nats reconnect attempt failed", "err", err)
+			fails.Note(err, "url", RedactURL(rawURL))
 		}),
 		nats.ClosedHandler(func(c *nats.Conn) {
 			log.Debug("nats connection closed")
@@ -75,9 +98,21 @@ func Connect(rawURL, name string, log *slog.Logger) (*nats.Conn, error) {
 	if err != nil {
 		return nil, fmt.Errorf("nats connect: %w", err)
 	}
-	log.Info("nats connected", "url", RedactURL(nc.ConnectedUrl()), "name", name)
 	return nc, nil
 }
+
+// Option changes how Connect connects.
+type Option func(*options)
+
+type options struct {
+	retryFirst bool
+}
+
+// RetryFirst makes Connect return at once when the server cannot be reached
+// yet: the connection keeps trying in the background with the usual
+// back-off, and what is published meanwhile waits in the client's buffer, as
+// during any later outage.
+func RetryFirst(on bool) Option { return func(o *options) { o.retryFirst = on } }
 
 // RedactURL hides credentials in a NATS URL or comma-separated URL list:
 // a password becomes "xxxxx", and so does a lone user part, which NATS uses

@@ -40,7 +40,7 @@ func StartEmbedded(host string, port int, log *slog.Logger) (*Embedded, error) {
 		return nil, fmt.Errorf("%w: port %d out of range 0..65535", ErrNotReady, port)
 	}
 	if host == "" {
-		host = "127.0.0.1"
+		host = DefaultHost
 	}
 	opts := &server.Options{
 		ServerName: "tallyd-embedded",

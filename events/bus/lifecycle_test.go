@@ -14,6 +14,7 @@ import (
 	"github.com/nats-io/nats.go"
 
 	"tallyd/events"
+	"tallyd/internal/testkit"
 )
 
 func TestPublisherSurvivesServerRestart(t *testing.T) {
@@ -23,7 +24,7 @@ func TestPublisherSurvivesServerRestart(t *testing.T) {
 		t.Fatal(err)
 	}
 	port := srv.Port()
-	var logs syncBuffer
+	var logs testkit.Buffer
 	log := slog.New(slog.NewTextHandler(&logs, &slog.HandlerOptions{Level: slog.LevelDebug}))
 	// The server has no auth and ignores the credentials; they are here to
 	// check that logs never show them.
@@ -38,7 +39,7 @@ func TestPublisherSurvivesServerRestart(t *testing.T) {
 	must(t, pub.Flush(5*time.Second))
 
 	srv.Shutdown()
-	eventually(t, 10*time.Second, "the client to notice the outage", func() bool { return nc.Status() != nats.CONNECTED })
+	testkit.WaitFor(t, 10*time.Second, "the client to notice the outage", func() bool { return nc.Status() != nats.CONNECTED })
 	// Publishing while disconnected is buffered, not an error.
 	must(t, pub.Publish(ctx, testEvent("depot", "cam-1", "door", "in", 2)))
 
@@ -47,7 +48,7 @@ func TestPublisherSurvivesServerRestart(t *testing.T) {
 		t.Fatalf("restart on port %d: %v", port, err)
 	}
 	defer srv2.Shutdown()
-	eventually(t, 15*time.Second, "the client to reconnect", func() bool { return nc.Status() == nats.CONNECTED })
+	testkit.WaitFor(t, 15*time.Second, "the client to reconnect", func() bool { return nc.Status() == nats.CONNECTED })
 
 	subConn, err := Connect(srv2.URL(), "restart-sub", nil)
 	if err != nil {
@@ -57,7 +58,7 @@ func TestPublisherSurvivesServerRestart(t *testing.T) {
 	subscribe(t, subConn, Filter{Prefix: "tallyd", Rule: "door"}, &c)
 	must(t, pub.Publish(ctx, testEvent("depot", "cam-1", "door", "out", 3)))
 	must(t, pub.Flush(5*time.Second))
-	eventually(t, 10*time.Second, "the event after reconnect", func() bool {
+	testkit.WaitFor(t, 10*time.Second, "the event after reconnect", func() bool {
 		c.mu.Lock()
 		defer c.mu.Unlock()
 		for _, ev := range c.got {
@@ -72,6 +73,9 @@ func TestPublisherSurvivesServerRestart(t *testing.T) {
 	if got := pub.Published(); got != 3 {
 		t.Errorf("Published() = %d, want 3", got)
 	}
+	// The reconnect handler runs on the client's own goroutine, possibly
+	// after the first message went through.
+	testkit.WaitFor(t, 5*time.Second, "the reconnect log line", func() bool { return strings.Contains(logs.String(), "nats reconnected") })
 	out := logs.String()
 	for _, w := range []string{"nats disconnected", "nats reconnected", "alice:xxxxx@127.0.0.1"} {
 		if !strings.Contains(out, w) {
@@ -85,7 +89,7 @@ func TestPublisherSurvivesServerRestart(t *testing.T) {
 	srv2.Shutdown()
 	srv.Shutdown() // twice is fine
 	// Everything started here has stopped.
-	eventually(t, 10*time.Second, "goroutines to finish", func() bool { return runtime.NumGoroutine() <= before })
+	testkit.WaitFor(t, 10*time.Second, "goroutines to finish", func() bool { return runtime.NumGoroutine() <= before })
 }
 
 func TestPublisherErrors(t *testing.T) {
@@ -132,7 +136,7 @@ func TestCloseReportsUndelivered(t *testing.T) {
 	}
 	pub := NewPublisher(nc, "tallyd")
 	srv.Shutdown()
-	eventually(t, 10*time.Second, "the outage", func() bool { return nc.Status() != nats.CONNECTED })
+	testkit.WaitFor(t, 10*time.Second, "the outage", func() bool { return nc.Status() != nats.CONNECTED })
 	must(t, pub.Publish(context.Background(), testEvent("depot", "cam-1", "door", "in", 1)))
 	err = pub.Close()
 	if err == nil || !strings.Contains(err.Error(), "bytes of events not delivered (server unreachable)") {

@@ -44,7 +44,7 @@ func (p *Publisher) Subject(ev events.Event) (string, error) {
 	}
 	for _, f := range []struct{ name, v string }{
 		{"data.site", ev.Data.Site}, {"data.source", ev.Data.Source},
-		{"data.rule", ev.Data.Rule}, {"data.kind", ev.Data.Kind},
+		{"data.rule", ev.Data.Rule}, {"data.kind", string(ev.Data.Kind)},
 	} {
 		if err := ValidToken(f.v); err != nil {
 			return "", fmt.Errorf("%s: %w", f.name, err)

@@ -11,6 +11,11 @@ package config
 
 import (
 	"time"
+
+	"tallyd/capture"
+	"tallyd/detect/motion"
+	"tallyd/events"
+	"tallyd/track"
 )
 
 // Config is one site file.
@@ -58,6 +63,9 @@ type Source struct {
 	MaxAge Duration `yaml:"max_age"`
 	// Gate runs the detector only on frames with motion.
 	Gate *Gate `yaml:"gate"`
+	// MaxFramePixels refuses frames larger than this many pixels (0: the
+	// capture default, 16 megapixels).
+	MaxFramePixels int `yaml:"max_frame_pixels"`
 }
 
 // Gate configures motion gating: a cheap frame difference decides whether a
@@ -65,7 +73,7 @@ type Source struct {
 type Gate struct {
 	// Where looks for change "anywhere" in the frame or only in the
 	// "rules" regions (zones, and a band around each line) of this source.
-	Where string `yaml:"where"`
+	Where motion.GateWhere `yaml:"where"`
 	// Threshold is the fraction of (downscaled) pixels that must change.
 	Threshold float64 `yaml:"threshold"`
 	// Hold keeps detecting this long after the last change.
@@ -84,18 +92,28 @@ type Scene struct {
 	Visitors  *int     `yaml:"visitors"`  // unset: the scene's default; 0 is none
 }
 
+// DetectorKind names the detector shared by all sources.
+type DetectorKind string
+
+// Detector kinds.
+const (
+	DetectorMotion DetectorKind = "motion" // background subtraction, no weights
+	DetectorFile   DetectorKind = "file"   // precomputed detections, MOTChallenge text format
+	DetectorONNX   DetectorKind = "onnx"   // a YOLO-family ONNX model
+)
+
+// DetectorKinds lists the detector kinds, the default first.
+var DetectorKinds = []DetectorKind{DetectorMotion, DetectorFile, DetectorONNX}
+
 // Detector selects and configures the detector shared by all sources.
 type Detector struct {
-	// Kind is "motion" (background subtraction, no weights), "file"
-	// (precomputed detections in the MOTChallenge text format) or "onnx" (a
-	// YOLO-family ONNX model).
-	Kind string `yaml:"kind"`
+	Kind DetectorKind `yaml:"kind"`
 	// Class is the class name given to detections of detectors that do not
 	// classify (motion, file).
-	Class  string       `yaml:"class"`
-	Motion Motion       `yaml:"motion"`
-	File   DetectorFile `yaml:"file"`
-	ONNX   ONNX         `yaml:"onnx"`
+	Class  string         `yaml:"class"`
+	Motion Motion         `yaml:"motion"`
+	File   DetectionFiles `yaml:"file"`
+	ONNX   ONNX           `yaml:"onnx"`
 }
 
 // Motion configures the background-subtraction detector.
@@ -109,8 +127,8 @@ type Motion struct {
 	CloseKernel  int     `yaml:"close_kernel"`  // morphological closing kernel size (px), fills holes
 }
 
-// DetectorFile configures the detections-file detector.
-type DetectorFile struct {
+// DetectionFiles configures the detections-file detector.
+type DetectionFiles struct {
 	// Paths maps a source ID to its detections file.
 	Paths    map[string]string `yaml:"paths"`
 	MinScore float64           `yaml:"min_score"`
@@ -118,11 +136,11 @@ type DetectorFile struct {
 
 // Tracker configures the tracker used for every source.
 type Tracker struct {
-	// Kind is "bytetrack" (Kalman motion model, optimal two-stage
-	// association) or "baseline" (the first-version IoU tracker).
-	Kind      string    `yaml:"kind"`
-	IoU       IoU       `yaml:"iou"`       // settings of the baseline
-	ByteTrack ByteTrack `yaml:"bytetrack"` // settings of bytetrack
+	// Kind is bytetrack (Kalman motion model, optimal two-stage
+	// association) or baseline (the first-version IoU tracker).
+	Kind      track.Kind `yaml:"kind"`
+	IoU       IoU        `yaml:"iou"`       // settings of the baseline
+	ByteTrack ByteTrack  `yaml:"bytetrack"` // settings of bytetrack
 }
 
 // IoU configures the baseline IoU tracker.
@@ -161,9 +179,9 @@ type Rule struct {
 	Line    [][2]float64 `yaml:"line"` // two points A, B; "in" is left→right of A→B as drawn
 	Zone    [][2]float64 `yaml:"zone"` // polygon, at least three points, not self-intersecting
 	Classes []string     `yaml:"classes"`
-	// Anchor is the point of a box tested against the rule: "bottom-center"
-	// (default; where feet touch the floor), "center" or "top-center".
-	Anchor string `yaml:"anchor"`
+	// Anchor is the point of a box tested against the rule: bottom-center
+	// (default; where feet touch the floor), center or top-center.
+	Anchor events.Anchor `yaml:"anchor"`
 	// Band is the hysteresis half-width as a fraction of the frame height: an
 	// anchor this close to the line or zone edge keeps its previous side.
 	Band *float64 `yaml:"band"`
@@ -201,36 +219,27 @@ type Log struct {
 // Duration is a time.Duration written as "10s", "1m30s".
 type Duration struct{ time.Duration }
 
-// Kind reports whether the rule is a "line" or a "zone".
-func (r Rule) Kind() string {
+// Kind reports whether the rule is a line or a zone.
+func (r Rule) Kind() events.RuleKind {
 	if len(r.Zone) > 0 {
-		return "zone"
+		return events.RuleZone
 	}
-	return "line"
+	return events.RuleLine
 }
 
-// SourceByID returns the source with the given ID.
-func (c *Config) SourceByID(id string) (Source, bool) {
-	for _, s := range c.Sources {
-		if s.ID == id {
-			return s, true
-		}
-	}
-	return Source{}, false
-}
-
-// Kind reports "scene", "file", "device", "folder" or "url".
-func (s Source) Kind() string {
+// Kind reports what the source reads: a generated scene, a file, a device,
+// an image folder or a stream URL.
+func (s Source) Kind() capture.Kind {
 	switch {
 	case s.Scene != nil:
-		return "scene"
+		return capture.KindScene
 	case s.File != "":
-		return "file"
+		return capture.KindFile
 	case s.Device != "":
-		return "device"
+		return capture.KindDevice
 	case s.Folder != "":
-		return "folder"
+		return capture.KindFolder
 	default:
-		return "url"
+		return capture.KindURL
 	}
 }

@@ -2,10 +2,19 @@ package config
 
 import (
 	"errors"
+	"fmt"
+	"math"
 	"os"
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
+
+	"tallyd/detect/motion"
+	"tallyd/detect/onnx"
+	"tallyd/events"
+	"tallyd/events/bus"
+	"tallyd/track"
 )
 
 const base = `site: ferry-terminal
@@ -24,14 +33,17 @@ func TestParseValid(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if cfg.Detector.Kind != "motion" || cfg.Tracker.IoU.BirthHits != DefaultBirthHits {
-		t.Errorf("defaults not applied: %+v", cfg.Detector)
+	// The defaults are the stages' own (one owner per setting).
+	if cfg.Detector.Kind != DetectorMotion || cfg.Detector.Motion.MinArea != motion.DefaultConfig().MinArea ||
+		cfg.Tracker.IoU.BirthHits != track.DefaultIoUConfig().BirthHits || cfg.Tracker.Kind != track.KindByteTrack ||
+		cfg.Detector.ONNX.ScoreThreshold != onnx.Defaults().ScoreThreshold {
+		t.Errorf("defaults not applied: %+v %+v", cfg.Detector, cfg.Tracker)
 	}
 	r := cfg.Rules[0]
-	if r.Anchor != DefaultAnchor || r.Band == nil || *r.Band != DefaultBand || r.Kind() != "line" {
+	if r.Anchor != events.AnchorBottomCenter || r.Band == nil || *r.Band != DefaultBand || r.Kind() != events.RuleLine {
 		t.Errorf("rule defaults: %+v", r)
 	}
-	if cfg.Output.NATS.Embedded.Port != DefaultNATSPort || cfg.Output.NATS.Prefix != "tallyd" {
+	if cfg.Output.NATS.Embedded.Port != bus.DefaultPort || cfg.Output.NATS.Prefix != "tallyd" {
 		t.Errorf("output defaults: %+v", cfg.Output)
 	}
 }
@@ -74,6 +86,21 @@ func TestErrors(t *testing.T) {
 		{"bad anchor", base + "    anchor: feet\n",
 			`site.yaml:10: rules[0].anchor: want bottom-center, center or top-center (found "feet")`},
 		{"bad detector", base + "detector:\n  kind: magic\n", `site.yaml:11: detector.kind: want motion, file or onnx (found "magic")`},
+		{"bad tracker", base + "tracker:\n  kind: sort\n", `site.yaml:11: tracker.kind: want bytetrack or baseline (found "sort")`},
+		// Limits (README "Limits").
+		{"alias", strings.Replace(base, "line: [[", "line: &pts [[", 1) + "  - name: gate2\n    source: walkway\n    line: *pts\n", "site.yaml:12: YAML aliases (*pts) are not supported; write the value out"},
+		{"long site", strings.Replace(base, "ferry-terminal", strings.Repeat("f", 65), 1), "site.yaml:1: site: at most 64 characters (found 65)"},
+		{"long class", base + "    classes: [" + strings.Repeat("c", 70) + "]\n", "site.yaml:10: rules[0].classes[0]: at most 64 characters (found 70)"},
+		{"long path", strings.Replace(base, "    scene:\n      seed: 1", "    file: "+strings.Repeat("d/", 2100)+"x.avi", 1),
+			"site.yaml:4: sources[0].file: at most 4096 characters (found 4205)"},
+		{"too many zone points", strings.Replace(base, "line: [[0.1, 0.5], [0.9, 0.5]]", "zone: "+manyPoints(1001), 1),
+			"site.yaml:9: rules[0].zone: at most 1000 points (found 1001)"},
+		{"start time far ahead", strings.Replace(base, "    scene:", "    start_time: 9999-12-31T23:59:59Z\n    scene:", 1),
+			"site.yaml:4: sources[0].start_time: must be from 1970-01-01 to before 2200-01-01 (found 9999-12-31T23:59:59Z)"},
+		{"start time before 1970", strings.Replace(base, "    scene:", "    start_time: 1969-12-31T23:59:59Z\n    scene:", 1),
+			"site.yaml:4: sources[0].start_time: must be from 1970-01-01 to before 2200-01-01 (found 1969-12-31T23:59:59Z)"},
+		{"frame pixels", strings.Replace(base, "    scene:", "    max_frame_pixels: 200000000\n    scene:", 1),
+			"site.yaml:4: sources[0].max_frame_pixels: must be within 0..100000000, 0 for the default of 16 megapixels (found 200000000)"},
 		{"bad nats url", base + "output:\n  nats:\n    url: http://user:secret@x:1\n",
 			`site.yaml:12: output.nats.url: want nats://host:port (found "http://user:xxxxx@x:1")`},
 		{"duplicate source", strings.Replace(base, "rules:", "  - id: walkway\n    scene: {seed: 2}\nrules:", 1),
@@ -167,6 +194,21 @@ func TestErrors(t *testing.T) {
 	}
 }
 
+// manyPoints is a flow list of n points on a circle: a simple polygon.
+func manyPoints(n int) string {
+	var b strings.Builder
+	b.WriteString("[")
+	for i := range n {
+		if i > 0 {
+			b.WriteString(", ")
+		}
+		a := 2 * math.Pi * float64(i) / float64(n)
+		fmt.Fprintf(&b, "[%.6f, %.6f]", 0.5+0.4*math.Cos(a), 0.5+0.4*math.Sin(a))
+	}
+	b.WriteString("]")
+	return b.String()
+}
+
 // onnxBlock is an ONNX detector block with the given lines of settings.
 func onnxBlock(lines string) string {
 	return "detector:\n  kind: onnx\n  onnx:\n    " + strings.TrimPrefix(lines, "    ") + "\n"
@@ -176,11 +218,12 @@ func onnxBlock(lines string) string {
 const onnxModel = "model: ../../testdata/onnx/e2e.onnx\n"
 
 func TestAllErrorsAtOnce(t *testing.T) {
-	y := strings.Replace(base, "ferry-terminal", "", 1) + "tracker:\n  kind: baseline\n  iou:\n    min_iou: 2\n    birth_hits: 0\n"
-	_, err := Parse("site.yaml", []byte(y))
+	y := strings.Replace(base, "ferry-terminal", "", 1) + "    anchor: feet\ntracker:\n  kind: hungarian\n"
+	extra := func(*Config) Errors { return Errors{{File: "site.yaml", Msg: "from a stage"}} }
+	_, err := Parse("site.yaml", []byte(y), extra)
 	var es Errors
-	if !errors.As(err, &es) || len(es) != 3 {
-		t.Fatalf("want 3 errors, got %v", err)
+	if !errors.As(err, &es) || len(es) != 4 || es[3].Msg != "from a stage" {
+		t.Fatalf("want 4 errors, the check's last, got %v", err)
 	}
 }
 
@@ -226,4 +269,32 @@ func FuzzParse(f *testing.F) {
 			t.Fatalf("error does not wrap ErrInvalid: %v", err)
 		}
 	})
+}
+
+// TestAliasBombRefusedFast: a "billion laughs" site file of nested aliases
+// is refused before anything expands it.
+func TestAliasBombRefusedFast(t *testing.T) {
+	var b strings.Builder
+	b.WriteString("site: s\nsources: [{id: a, scene: {seed: 1}}]\nx0: &a0 [1, 2, 3, 4, 5, 6, 7, 8, 9]\n")
+	for i := 1; i < 30; i++ {
+		fmt.Fprintf(&b, "x%d: &a%d [*a%d, *a%d, *a%d, *a%d, *a%d, *a%d, *a%d, *a%d, *a%d]\n", i, i, i-1, i-1, i-1, i-1, i-1, i-1, i-1, i-1, i-1)
+	}
+	start := time.Now()
+	_, err := Parse("bomb.yaml", []byte(b.String()))
+	if err == nil || !strings.Contains(err.Error(), "bomb.yaml:4: YAML aliases (*a0) are not supported") {
+		t.Fatalf("err = %v", err)
+	}
+	t.Logf("refused in %v", time.Since(start))
+}
+
+// TestSizeLimit: a site file over MaxFileBytes is refused with the limit.
+func TestSizeLimit(t *testing.T) {
+	p := filepath.Join(t.TempDir(), "big.yaml")
+	if err := os.WriteFile(p, append([]byte(base), make([]byte, MaxFileBytes)...), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	_, err := Load(p)
+	if err == nil || !strings.HasSuffix(err.Error(), "big.yaml: the site file is over the limit of 1048576 bytes") {
+		t.Fatalf("err = %v", err)
+	}
 }

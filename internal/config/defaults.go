@@ -3,107 +3,101 @@ package config
 import (
 	"time"
 
+	"tallyd/detect/motion"
+	"tallyd/detect/onnx"
+	"tallyd/events"
+	"tallyd/events/bus"
 	"tallyd/track"
 )
 
-// Default values, in one place. The README's config reference lists them.
+// Defaults of the site file's own settings. Everything a stage does with a
+// value (detector, tracker, capture, bus) takes its default from that stage;
+// Defaults below copies them into site-file form.
 const (
-	DefaultDetector     = "motion"
-	DefaultClass        = "person"
-	DefaultTracker      = "bytetrack"
-	DefaultAnchor       = "bottom-center"
-	DefaultBand         = 0.01 // of the frame height
-	DefaultNATSHost     = "127.0.0.1"
-	DefaultNATSPort     = 4222 // the NATS protocol's registered port (common practice)
-	DefaultPrefix       = "tallyd"
-	DefaultLogLevel     = "info"
-	DefaultLogFormat    = "text"
-	DefaultMinArea      = 300
-	DefaultHistory      = 500
-	DefaultVarThreshold = 16 // OpenCV's MOG2 default
-	DefaultLearningRate = 0.0002
-	DefaultWarmupFrames = 30
-	DefaultOpenKernel   = 3
-	DefaultCloseKernel  = 7
-	DefaultMinIoU       = track.DefaultMinIoU    // baseline tracker
-	DefaultBirthHits    = track.DefaultBirthHits // baseline tracker
-	DefaultMaxMisses    = track.DefaultMaxMisses // baseline tracker
+	DefaultBand      = 0.01 // rules[].band, as a fraction of the frame height
+	DefaultLogLevel  = "info"
+	DefaultLogFormat = "text"
 )
 
-// ONNX detector defaults: a YOLOX-style model (BGR, pixels 0..255,
-// letterboxed top-left with 114, the YOLOX reference preprocessing).
+// Limits of a site file. Each is checked with an error naming it; the
+// README's "Limits" section lists them.
 const (
-	DefaultONNXEngine       = "ort"
-	DefaultONNXOptimization = "all"
-	DefaultONNXChannels     = "bgr"
-	DefaultONNXScale        = 255
-	DefaultONNXPad          = 114
-	DefaultONNXPlace        = "top-left"
-	DefaultONNXLayout       = "auto"
-	DefaultONNXScore        = 0.25
-	DefaultONNXNMS          = "greedy"
-	DefaultONNXIoU          = 0.45
-	DefaultONNXMaxDets      = 100
+	MaxFileBytes   = 1 << 20 // the site file itself
+	MaxSources     = 256
+	MaxRules       = 1024
+	MaxZonePoints  = 1000 // vertices of one zone polygon
+	MaxTokenLen    = 64   // site, source ids, rule names, class names, the subject prefix
+	MaxPathLen     = 4096 // file, folder, model paths and URLs
+	MaxFramePixels = 100_000_000
+)
+
+// Time range of start_time: event times must stay writable as RFC 3339 for
+// any stream length, and times far outside it are typing mistakes.
+var (
+	MinStartTime = time.Date(1970, 1, 1, 0, 0, 0, 0, time.UTC)
+	MaxStartTime = time.Date(2200, 1, 1, 0, 0, 0, 0, time.UTC)
 )
 
 // Defaults is the configuration every site file starts from.
 func Defaults() Config {
+	m := motion.DefaultConfig()
+	o := onnx.Defaults()
+	tr := track.DefaultSettings()
+	bt, iou := tr.ByteTrack, tr.Baseline
 	return Config{
 		Detector: Detector{
-			Kind:  DefaultDetector,
-			Class: DefaultClass,
+			Kind:  DetectorMotion,
+			Class: m.Class,
 			Motion: Motion{
-				History:      DefaultHistory,
-				VarThreshold: DefaultVarThreshold,
-				LearningRate: DefaultLearningRate,
-				WarmupFrames: DefaultWarmupFrames,
-				MinArea:      DefaultMinArea,
-				OpenKernel:   DefaultOpenKernel,
-				CloseKernel:  DefaultCloseKernel,
+				History: m.History, VarThreshold: m.VarThreshold, LearningRate: m.LearningRate,
+				WarmupFrames: m.WarmupFrames, MinArea: m.MinArea, OpenKernel: m.OpenKernel, CloseKernel: m.CloseKernel,
 			},
 			ONNX: ONNX{
-				Engine:         DefaultONNXEngine,
-				Optimization:   DefaultONNXOptimization,
-				Channels:       DefaultONNXChannels,
-				Scale:          DefaultONNXScale,
-				Letterbox:      ONNXLetterbox{Pad: DefaultONNXPad, Place: DefaultONNXPlace},
-				Layout:         DefaultONNXLayout,
-				ScoreThreshold: DefaultONNXScore,
-				NMS:            ONNXNMS{Kind: DefaultONNXNMS, IoU: DefaultONNXIoU, ClassAware: true},
-				MaxDetections:  DefaultONNXMaxDets,
+				Engine: o.Engine, Optimization: o.Optimization, Channels: channelsOf(o.RGB), Scale: o.Scale,
+				Letterbox: ONNXLetterbox{Pad: int(o.Pad), Place: o.Place}, Layout: o.Layout,
+				ScoreThreshold: o.ScoreThreshold,
+				NMS:            ONNXNMS{Kind: o.NMS, IoU: o.IoU, ClassAware: o.ClassAware},
+				MaxDetections:  o.MaxDetections,
 			},
 		},
 		Tracker: Tracker{
-			Kind:      DefaultTracker,
-			IoU:       IoU{MinIoU: DefaultMinIoU, BirthHits: DefaultBirthHits, MaxMisses: DefaultMaxMisses},
-			ByteTrack: byteTrackDefaults(),
+			Kind: tr.Kind,
+			IoU:  IoU{MinIoU: iou.MinIoU, BirthHits: iou.BirthHits, MaxMisses: iou.MaxMisses, PerClass: iou.PerClass},
+			ByteTrack: ByteTrack{
+				HighScore: bt.HighScore, LowScore: bt.LowScore, NewTrackScore: bt.NewTrackScore,
+				MatchIoU: bt.MatchIoU, LowMatchIoU: bt.LowMatchIoU, BirthHits: bt.BirthHits,
+				LostTTL: Duration{bt.LostTTL}, PerClass: bt.PerClass,
+				Motion: TrackMotion{MeasurementNoise: bt.Motion.MeasurementNoise,
+					Acceleration: bt.Motion.Acceleration, SizeAcceleration: bt.Motion.SizeAcceleration},
+			},
 		},
 		Output: Output{NATS: NATS{
-			Embedded: Embedded{Host: DefaultNATSHost, Port: DefaultNATSPort},
-			Prefix:   DefaultPrefix,
+			Embedded: Embedded{Host: bus.DefaultHost, Port: bus.DefaultPort},
+			Prefix:   bus.DefaultPrefix,
 		}},
 		Log: Log{Level: DefaultLogLevel, Format: DefaultLogFormat},
 	}
 }
 
-// Gate defaults.
-const (
-	DefaultGateWhere     = "anywhere"
-	DefaultGateThreshold = 0.001
-	DefaultGateHold      = 2 * time.Second
-)
+func channelsOf(rgb bool) string {
+	if rgb {
+		return "rgb"
+	}
+	return "bgr"
+}
 
 func (c *Config) fillSourceDefaults() {
+	d := motion.DefaultGateConfig()
 	for i := range c.Sources {
 		if g := c.Sources[i].Gate; g != nil {
 			if g.Where == "" {
-				g.Where = DefaultGateWhere
+				g.Where = d.Where
 			}
 			if g.Threshold == 0 {
-				g.Threshold = DefaultGateThreshold
+				g.Threshold = d.Threshold
 			}
 			if g.Hold.Duration == 0 {
-				g.Hold.Duration = DefaultGateHold
+				g.Hold.Duration = d.Hold
 			}
 		}
 	}
@@ -113,23 +107,11 @@ func (c *Config) fillRuleDefaults() {
 	for i := range c.Rules {
 		r := &c.Rules[i]
 		if r.Anchor == "" {
-			r.Anchor = DefaultAnchor
+			r.Anchor = events.AnchorBottomCenter
 		}
 		if r.Band == nil {
 			b := DefaultBand
 			r.Band = &b
 		}
-	}
-}
-
-// byteTrackDefaults mirrors track.DefaultByteTrackConfig in site-file form.
-func byteTrackDefaults() ByteTrack {
-	d := track.DefaultByteTrackConfig()
-	return ByteTrack{
-		HighScore: d.HighScore, LowScore: d.LowScore, NewTrackScore: d.NewTrackScore,
-		MatchIoU: d.MatchIoU, LowMatchIoU: d.LowMatchIoU, BirthHits: d.BirthHits,
-		LostTTL: Duration{d.LostTTL}, PerClass: d.PerClass,
-		Motion: TrackMotion{MeasurementNoise: d.Motion.MeasurementNoise,
-			Acceleration: d.Motion.Acceleration, SizeAcceleration: d.Motion.SizeAcceleration},
 	}
 }

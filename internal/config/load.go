@@ -65,14 +65,20 @@ func (e FieldError) Is(target error) bool { return target == ErrInvalid }
 // lineIndex maps a key path to the line it was written on.
 type lineIndex map[string]int
 
-// Load reads, decodes strictly and validates a site file. Every error wraps
-// ErrInvalid and names the file, line and key.
-func Load(path string) (*Config, error) {
-	data, err := os.ReadFile(path)
+// Load reads, decodes strictly and validates a site file, running checks
+// with its own validation. Every error wraps ErrInvalid and names the file,
+// line and key.
+func Load(path string, checks ...Check) (*Config, error) {
+	f, err := os.Open(path)
 	if err != nil {
 		return nil, FieldError{File: path, Msg: fmt.Sprintf("cannot read site file: %v", unwrapPathErr(err))}
 	}
-	return Parse(path, data)
+	defer f.Close()
+	data, err := io.ReadAll(io.LimitReader(f, MaxFileBytes+1))
+	if err != nil {
+		return nil, FieldError{File: path, Msg: fmt.Sprintf("cannot read site file: %v", err)}
+	}
+	return Parse(path, data, checks...)
 }
 
 func unwrapPathErr(err error) error {
@@ -85,7 +91,10 @@ func unwrapPathErr(err error) error {
 
 // Parse decodes and validates a site file held in memory; name is used in errors
 // and relative paths are resolved against its folder.
-func Parse(name string, data []byte) (*Config, error) {
+func Parse(name string, data []byte, checks ...Check) (*Config, error) {
+	if len(data) > MaxFileBytes {
+		return nil, FieldError{File: name, Msg: fmt.Sprintf("the site file is over the limit of %d bytes", MaxFileBytes)}
+	}
 	var doc yaml.Node
 	dec := yaml.NewDecoder(bytes.NewReader(data))
 	if err := dec.Decode(&doc); err != nil && !errors.Is(err, io.EOF) {
@@ -93,6 +102,11 @@ func Parse(name string, data []byte) (*Config, error) {
 	}
 	if len(doc.Content) == 0 {
 		return nil, FieldError{File: name, Msg: "file is empty"}
+	}
+	// Aliases are refused before anything follows them: expanding nested
+	// aliases costs time and memory exponential in the file's size.
+	if n := findAlias(doc.Content[0]); n != nil {
+		return nil, FieldError{File: name, Line: n.Line, Msg: fmt.Sprintf("YAML aliases (*%s) are not supported; write the value out", n.Value)}
 	}
 	w := walker{file: name, lines: lineIndex{}}
 	w.walk(doc.Content[0], reflect.TypeOf(Config{}), "", doc.Content[0].Line)
@@ -107,10 +121,24 @@ func Parse(name string, data []byte) (*Config, error) {
 	cfg.lines = w.lines
 	cfg.fillRuleDefaults()
 	cfg.fillSourceDefaults()
-	if err := cfg.Validate(); err != nil {
+	if err := cfg.Validate(checks...); err != nil {
 		return nil, err
 	}
 	return &cfg, nil
+}
+
+// findAlias returns the first alias node in document order, or nil. Anchors
+// alone are harmless and allowed.
+func findAlias(n *yaml.Node) *yaml.Node {
+	if n.Kind == yaml.AliasNode {
+		return n
+	}
+	for _, c := range n.Content {
+		if a := findAlias(c); a != nil {
+			return a
+		}
+	}
+	return nil
 }
 
 // yamlSyntaxError turns "yaml: line 3: mapping values are not allowed" into
@@ -143,9 +171,6 @@ func (w *walker) fail(line int, path, format string, args ...any) {
 }
 
 func (w *walker) walk(n *yaml.Node, t reflect.Type, path string, line int) {
-	if n.Kind == yaml.AliasNode && n.Alias != nil {
-		n = n.Alias
-	}
 	if n.Line > 0 {
 		line = n.Line
 	}

@@ -4,17 +4,29 @@ import (
 	"fmt"
 	"math"
 	"os"
+	"slices"
 	"sort"
+	"strings"
+
+	"tallyd/detect/onnx"
 )
+
+// orList joins names as "a, b or c".
+func orList(names []string) string {
+	if len(names) < 2 {
+		return strings.Join(names, "")
+	}
+	return strings.Join(names[:len(names)-1], ", ") + " or " + names[len(names)-1]
+}
 
 // ONNX configures the ONNX detector (detector.kind: onnx): a YOLO-family
 // model run on the CPU by ONNX Runtime or OpenCV's DNN module. Paths are
 // relative to the site file's folder. The README's "ONNX detectors" section
 // explains each key.
 type ONNX struct {
-	Model  string `yaml:"model"`  // .onnx file
-	Names  string `yaml:"names"`  // class names, one per line; empty: model metadata, else class0, class1, ...
-	Engine string `yaml:"engine"` // ort or opencv
+	Model  string      `yaml:"model"`  // .onnx file
+	Names  string      `yaml:"names"`  // class names, one per line; empty: model metadata, else class0, class1, ...
+	Engine onnx.Engine `yaml:"engine"` // ort or opencv
 	// Library is the ONNX Runtime 1.24.1 shared library; empty looks at
 	// $TALLYD_ORT_LIB, then .cache/onnxruntime/1.24.1/ (make setup).
 	Library      string      `yaml:"library"`
@@ -29,7 +41,7 @@ type ONNX struct {
 	Letterbox ONNXLetterbox `yaml:"letterbox"`
 	// Layout is auto or one of yolox-grid, rows-obj, rows-noobj-chw,
 	// boxes-scores, e2e.
-	Layout          string             `yaml:"layout"`
+	Layout          onnx.Layout        `yaml:"layout"`
 	ScoreThreshold  float64            `yaml:"score_threshold"`
 	ClassThresholds map[string]float64 `yaml:"class_thresholds"` // per class name, overrides score_threshold
 	Classes         []string           `yaml:"classes"`          // allow-list by name; empty keeps all
@@ -52,19 +64,16 @@ type ONNXInput struct {
 
 // ONNXLetterbox says how a frame is fitted into the model's input.
 type ONNXLetterbox struct {
-	Pad   int    `yaml:"pad"`   // fill value 0..255
-	Place string `yaml:"place"` // top-left or center
+	Pad   int            `yaml:"pad"`   // fill value 0..255
+	Place onnx.Placement `yaml:"place"` // top-left or center
 }
 
 // ONNXNMS configures duplicate suppression.
 type ONNXNMS struct {
-	Kind       string  `yaml:"kind"` // greedy, diou or none
-	IoU        float64 `yaml:"iou"`
-	ClassAware bool    `yaml:"class_aware"`
+	Kind       onnx.NMSKind `yaml:"kind"` // greedy, diou or none
+	IoU        float64      `yaml:"iou"`
+	ClassAware bool         `yaml:"class_aware"`
 }
-
-// ONNXLayouts lists the accepted values of detector.onnx.layout.
-var ONNXLayouts = []string{"auto", "yolox-grid", "rows-obj", "rows-noobj-chw", "boxes-scores", "e2e"}
 
 func (v *validator) onnx() {
 	o := v.c.Detector.ONNX
@@ -78,11 +87,11 @@ func (v *validator) onnx() {
 		v.onnxFile(p+"names", o.Names, "a class names file")
 	}
 	switch o.Engine {
-	case "ort":
+	case onnx.EngineORT:
 		if o.Library != "" {
 			v.onnxFile(p+"library", o.Library, "the ONNX Runtime shared library")
 		}
-	case "opencv":
+	case onnx.EngineOpenCV:
 	default:
 		v.fail(p+"engine", "want ort or opencv (found %q)", o.Engine)
 	}
@@ -129,15 +138,15 @@ func (v *validator) onnx() {
 	if o.Letterbox.Pad < 0 || o.Letterbox.Pad > 255 {
 		v.fail(p+"letterbox.pad", "must be a pixel value within 0..255 (found %d)", o.Letterbox.Pad)
 	}
-	if o.Letterbox.Place != "top-left" && o.Letterbox.Place != "center" {
+	if o.Letterbox.Place != onnx.PlaceTopLeft && o.Letterbox.Place != onnx.PlaceCenter {
 		v.fail(p+"letterbox.place", "want top-left or center (found %q)", o.Letterbox.Place)
 	}
-	known := false
-	for _, l := range ONNXLayouts {
-		known = known || o.Layout == l
-	}
-	if !known {
-		v.fail(p+"layout", "want auto, yolox-grid, rows-obj, rows-noobj-chw, boxes-scores or e2e (found %q)", o.Layout)
+	if o.Layout != onnx.LayoutAuto && !slices.Contains(onnx.Layouts, o.Layout) {
+		names := []string{string(onnx.LayoutAuto)}
+		for _, l := range onnx.Layouts {
+			names = append(names, string(l))
+		}
+		v.fail(p+"layout", "want %s (found %q)", orList(names), o.Layout)
 	}
 	if !(o.ScoreThreshold >= 0 && o.ScoreThreshold <= 1) {
 		v.fail(p+"score_threshold", "must be within 0..1 (found %v)", o.ScoreThreshold)
@@ -153,12 +162,10 @@ func (v *validator) onnx() {
 		}
 	}
 	for i, cl := range o.Classes {
-		if cl == "" {
-			v.fail(fmt.Sprintf("%sclasses[%d]", p, i), "class name is empty")
-		}
+		v.name(fmt.Sprintf("%sclasses[%d]", p, i), cl)
 	}
 	switch o.NMS.Kind {
-	case "greedy", "diou", "none":
+	case onnx.NMSGreedy, onnx.NMSDIoU, onnx.NMSNone:
 	default:
 		v.fail(p+"nms.kind", "want greedy, diou or none (found %q)", o.NMS.Kind)
 	}
@@ -175,6 +182,9 @@ func (v *validator) onnx() {
 
 // onnxFile checks that a path from the site file names a readable file.
 func (v *validator) onnxFile(path, p, what string) {
+	if !v.pathLen(path, p) {
+		return
+	}
 	full := v.c.Resolve(p)
 	if st, err := os.Stat(full); err != nil {
 		v.fail(path, "cannot open %q: %v", full, unwrapPathErr(err))

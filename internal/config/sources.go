@@ -8,16 +8,9 @@ import (
 	"os"
 	"path/filepath"
 	"strings"
-	"time"
-)
 
-// Defaults of the live-source keys; zero values in a site file mean these.
-// The capture package applies the same values (a test there checks).
-const (
-	DefaultOpenTimeout = 10 * time.Second // open_timeout: connect and read the first frame
-	DefaultReadTimeout = 5 * time.Second  // read_timeout: longest wait for a frame
-	DefaultFolderFPS   = 10.0             // folder_fps
-	DefaultTransport   = "tcp"            // transport of rtsp:// sources
+	"tallyd/capture"
+	"tallyd/events/bus"
 )
 
 // streamSchemes are the URL schemes a url source may use.
@@ -63,7 +56,7 @@ func (s Secret) MarshalJSON() ([]byte, error) { return []byte(fmt.Sprintf("%q", 
 // the path.
 func (s Source) Display() string {
 	switch s.Kind() {
-	case "url":
+	case capture.KindURL:
 		u, err := url.Parse(s.URL)
 		if err != nil {
 			return "(unparsable URL)"
@@ -72,11 +65,11 @@ func (s Source) Display() string {
 			u.User = url.UserPassword(s.Username, redacted)
 		}
 		return u.Redacted()
-	case "device":
+	case capture.KindDevice:
 		return "device " + s.Device
-	case "folder":
+	case capture.KindFolder:
 		return s.Folder
-	case "file":
+	case capture.KindFile:
 		return s.File
 	}
 	return "generated scene"
@@ -89,9 +82,9 @@ func (v *validator) liveSource(path string, s Source) {
 		u, err := url.Parse(s.URL)
 		switch {
 		case err != nil || !streamSchemes[strings.ToLower(u.Scheme)]:
-			v.fail(path+".url", "want an rtsp://, rtsps://, http:// or https:// URL (found %q)", Redact(s.URL))
+			v.fail(path+".url", "want an rtsp://, rtsps://, http:// or https:// URL (found %q)", bus.RedactURL(s.URL))
 		case u.Host == "":
-			v.fail(path+".url", "the URL has no host (found %q)", Redact(s.URL))
+			v.fail(path+".url", "the URL has no host (found %q)", bus.RedactURL(s.URL))
 		case u.User != nil && (s.Username != "" || s.Password != ""):
 			v.fail(path+".username", "the url already holds credentials; set them in one place")
 		}
@@ -135,7 +128,7 @@ func (v *validator) liveSource(path string, s Source) {
 	}
 	switch {
 	case s.FolderFPS < 0 || math.IsNaN(s.FolderFPS):
-		v.fail(path+".folder_fps", "must be positive, or 0 for the default %v (found %v)", DefaultFolderFPS, s.FolderFPS)
+		v.fail(path+".folder_fps", "must be positive, or 0 for the default %v (found %v)", capture.DefaultFolderFPS, s.FolderFPS)
 	case s.FolderFPS != 0 && s.Folder == "":
 		v.fail(path+".folder_fps", "applies to folder sources only")
 	}

@@ -1,29 +1,40 @@
 package config
 
 import (
-	"errors"
 	"fmt"
 	"math"
 	"net/url"
 	"os"
 	"regexp"
-	"strings"
+	"slices"
 	"time"
 
-	"tallyd/capture/scene"
 	"tallyd/events"
+	"tallyd/events/bus"
 	"tallyd/track"
 )
 
 var tokenRE = regexp.MustCompile(`^[A-Za-z0-9_-]+$`)
 
-// Validate checks every rule of a site file and reports all problems at once,
-// each naming the key path, the rule broken and the value found.
-func (c *Config) Validate() error {
+// A Check is a validation run together with the site file's own, so that its
+// problems are reported with the others, all at once. The pipeline passes
+// the stages' checks (settings only a stage can judge) this way.
+type Check func(*Config) Errors
+
+// Validate checks every rule of a site file, then the extra checks, and
+// reports all problems at once, each naming the key path, the rule broken and
+// the value found.
+func (c *Config) Validate(checks ...Check) error {
 	v := validator{c: c}
 	v.token("site", c.Site)
-	if len(c.Sources) == 0 {
+	switch {
+	case len(c.Sources) == 0:
 		v.fail("sources", "at least one source is required")
+	case len(c.Sources) > MaxSources:
+		v.fail("sources", "at most %d sources in one site file (found %d)", MaxSources, len(c.Sources))
+	}
+	if len(c.Rules) > MaxRules {
+		v.fail("rules", "at most %d rules in one site file (found %d)", MaxRules, len(c.Rules))
 	}
 	ids := map[string]bool{}
 	for i, s := range c.Sources {
@@ -36,6 +47,9 @@ func (c *Config) Validate() error {
 		v.rule(fmt.Sprintf("rules[%d]", i), r, ids, names)
 	}
 	v.output()
+	for _, check := range checks {
+		v.errs = append(v.errs, check(c)...)
+	}
 	if len(v.errs) > 0 {
 		return v.errs
 	}
@@ -55,9 +69,30 @@ func (v *validator) token(path, s string) {
 	switch {
 	case s == "":
 		v.fail(path, "is required")
+	case len(s) > MaxTokenLen:
+		v.fail(path, "at most %d characters (found %d)", MaxTokenLen, len(s))
 	case !tokenRE.MatchString(s):
 		v.fail(path, "use only letters, digits, '-' and '_' (found %q)", s)
 	}
+}
+
+// name checks a free-form name such as a class: not empty, not too long.
+func (v *validator) name(path, s string) {
+	switch {
+	case s == "":
+		v.fail(path, "class name is empty")
+	case len(s) > MaxTokenLen:
+		v.fail(path, "at most %d characters (found %d)", MaxTokenLen, len(s))
+	}
+}
+
+// path checks the length of a path or URL from the site file.
+func (v *validator) pathLen(key, s string) bool {
+	if len(s) > MaxPathLen {
+		v.fail(key, "at most %d characters (found %d)", MaxPathLen, len(s))
+		return false
+	}
+	return true
 }
 
 func (v *validator) source(path string, s Source, ids map[string]bool) {
@@ -75,7 +110,10 @@ func (v *validator) source(path string, s Source, ids map[string]bool) {
 	if set != 1 {
 		v.fail(path, "set exactly one of file, url, device, folder and scene (found %d)", set)
 	}
-	if s.File != "" {
+	for _, k := range []struct{ key, val string }{{"file", s.File}, {"url", s.URL}, {"device", s.Device}, {"folder", s.Folder}} {
+		v.pathLen(path+"."+k.key, k.val)
+	}
+	if s.File != "" && len(s.File) <= MaxPathLen {
 		p := v.c.Resolve(s.File)
 		if st, err := os.Stat(p); err != nil {
 			v.fail(path+".file", "cannot open %q: %v", p, unwrapPathErr(err))
@@ -84,11 +122,6 @@ func (v *validator) source(path string, s Source, ids map[string]bool) {
 		}
 	}
 	v.liveSource(path, s)
-	if s.Scene != nil {
-		if err := SceneConfig(*s.Scene).Validate(); err != nil {
-			v.fail(path+".scene", "%v", err)
-		}
-	}
 	if s.FPS < 0 || math.IsNaN(s.FPS) {
 		v.fail(path+".fps", "must be 0 (every frame) or positive (found %v)", s.FPS)
 	}
@@ -107,35 +140,24 @@ func (v *validator) source(path string, s Source, ids map[string]bool) {
 		}
 	}
 	if s.StartTime != "" {
-		if _, err := time.Parse(time.RFC3339, s.StartTime); err != nil {
+		t, err := time.Parse(time.RFC3339, s.StartTime)
+		switch {
+		case err != nil:
 			v.fail(path+".start_time", "want an RFC 3339 time such as 2026-06-01T08:00:00Z (found %q)", s.StartTime)
+		case t.Before(MinStartTime) || !t.Before(MaxStartTime):
+			v.fail(path+".start_time", "must be from %s to before %s (found %s)",
+				MinStartTime.Format(time.DateOnly), MaxStartTime.Format(time.DateOnly), s.StartTime)
 		}
 	}
-}
-
-// SceneConfig converts the site file's scene block into the generator's
-// config: keys left out take the scene's defaults; an explicit 0 (noise,
-// crossings, visitors) means none.
-func SceneConfig(s Scene) scene.Config {
-	c := scene.Config{
-		Seed: s.Seed, Width: s.Width, Height: s.Height, FPS: s.FPS, Duration: s.Duration.Duration,
-	}.WithDefaults()
-	if s.Noise != nil {
-		c.Noise = *s.Noise
+	if s.MaxFramePixels < 0 || s.MaxFramePixels > MaxFramePixels {
+		v.fail(path+".max_frame_pixels", "must be within 0..%d, 0 for the default of 16 megapixels (found %d)", MaxFramePixels, s.MaxFramePixels)
 	}
-	if s.Crossings != nil {
-		c.Crossings = *s.Crossings
-	}
-	if s.Visitors != nil {
-		c.Visitors = *s.Visitors
-	}
-	return c
 }
 
 func (v *validator) detector(ids map[string]bool) {
 	d := v.c.Detector
 	switch d.Kind {
-	case "motion":
+	case DetectorMotion:
 		m := d.Motion
 		p := "detector.motion."
 		if m.History < 1 {
@@ -153,12 +175,15 @@ func (v *validator) detector(ids map[string]bool) {
 		if !(m.MinArea >= 0) {
 			v.fail(p+"min_area", "must not be negative (found %v)", m.MinArea)
 		}
-		for k, n := range map[string]int{"open_kernel": m.OpenKernel, "close_kernel": m.CloseKernel} {
-			if n < 0 || n > 99 {
-				v.fail(p+k, "must be within 0..99 pixels (found %d)", n)
+		for _, k := range []struct {
+			key string
+			n   int
+		}{{"open_kernel", m.OpenKernel}, {"close_kernel", m.CloseKernel}} {
+			if k.n < 0 || k.n > 99 {
+				v.fail(p+k.key, "must be within 0..99 pixels (found %d)", k.n)
 			}
 		}
-	case "file":
+	case DetectorFile:
 		for id := range ids {
 			if _, ok := d.File.Paths[id]; !ok && id != "" {
 				v.fail("detector.file.paths", "no detections file for source %q", id)
@@ -169,65 +194,41 @@ func (v *validator) detector(ids map[string]bool) {
 				v.fail("detector.file.paths."+id, "no source has this id")
 				continue
 			}
+			if !v.pathLen("detector.file.paths."+id, p) {
+				continue
+			}
 			if _, err := os.Stat(v.c.Resolve(p)); err != nil {
 				v.fail("detector.file.paths."+id, "cannot open %q: %v", v.c.Resolve(p), unwrapPathErr(err))
 			}
 		}
-	case "onnx":
+	case DetectorONNX:
 		v.onnx()
 	default:
-		v.fail("detector.kind", "want motion, file or onnx (found %q)", d.Kind)
+		v.fail("detector.kind", "want %s (found %q)", orList(toStrings(DetectorKinds)), d.Kind)
 	}
 	if d.Class == "" {
 		v.fail("detector.class", "is required")
+	} else {
+		v.name("detector.class", d.Class)
 	}
 }
 
+// toStrings turns typed names into strings.
+func toStrings[T ~string](vs []T) []string {
+	out := make([]string, len(vs))
+	for i, v := range vs {
+		out[i] = string(v)
+	}
+	return out
+}
+
+// tracker checks the tracker kind; the pipeline's check judges its
+// settings with the tracker's own rules.
 func (v *validator) tracker() {
-	t := v.c.Tracker
-	var err error
-	prefix := "tracker."
-	switch t.Kind {
-	case "bytetrack":
-		err, prefix = ByteTrackConfig(t.ByteTrack).Validate(), prefix+"bytetrack."
-	case "baseline":
-		err, prefix = IoUConfig(t.IoU).Validate(), prefix+"iou."
-	default:
-		v.fail("tracker.kind", "want bytetrack or baseline (found %q)", t.Kind)
-		return
-	}
-	var joined interface{ Unwrap() []error }
-	if errors.As(err, &joined) {
-		for _, e := range joined.Unwrap() {
-			var ce *track.ConfigError
-			if errors.As(e, &ce) {
-				v.fail(prefix+ce.Field, "%s", ce.Msg)
-			} else {
-				v.fail(strings.TrimSuffix(prefix, "."), "%v", e)
-			}
-		}
-	} else if err != nil {
-		v.fail(strings.TrimSuffix(prefix, "."), "%v", err)
+	if k := v.c.Tracker.Kind; !slices.Contains(track.Kinds, k) {
+		v.fail("tracker.kind", "want %s (found %q)", orList(toStrings(track.Kinds)), k)
 	}
 }
-
-// ByteTrackConfig converts the site file's bytetrack block for the tracker.
-func ByteTrackConfig(b ByteTrack) track.ByteTrackConfig {
-	return track.ByteTrackConfig{
-		HighScore: b.HighScore, LowScore: b.LowScore, NewTrackScore: b.NewTrackScore,
-		MatchIoU: b.MatchIoU, LowMatchIoU: b.LowMatchIoU, BirthHits: b.BirthHits,
-		LostTTL: b.LostTTL.Duration, PerClass: b.PerClass,
-		Motion: track.MotionConfig{MeasurementNoise: b.Motion.MeasurementNoise,
-			Acceleration: b.Motion.Acceleration, SizeAcceleration: b.Motion.SizeAcceleration},
-	}
-}
-
-// IoUConfig converts the site file's iou block for the baseline tracker.
-func IoUConfig(c IoU) track.IoUConfig {
-	return track.IoUConfig{MinIoU: c.MinIoU, BirthHits: c.BirthHits, MaxMisses: c.MaxMisses, PerClass: c.PerClass}
-}
-
-var anchors = map[string]bool{"bottom-center": true, "center": true, "top-center": true}
 
 func (v *validator) rule(path string, r Rule, ids, names map[string]bool) {
 	v.token(path+".name", r.Name)
@@ -246,15 +247,19 @@ func (v *validator) rule(path string, r Rule, ids, names map[string]bool) {
 	}
 	pts := r.Line
 	key := path + ".line"
-	if r.Kind() == "zone" {
+	if r.Kind() == events.RuleZone {
 		pts, key = r.Zone, path+".zone"
+	}
+	if len(pts) > MaxZonePoints {
+		v.fail(key, "at most %d points (found %d)", MaxZonePoints, len(pts))
+		return
 	}
 	for i, p := range pts {
 		if p[0] < 0 || p[0] > 1 || p[1] < 0 || p[1] > 1 || math.IsNaN(p[0]) || math.IsNaN(p[1]) {
 			v.fail(fmt.Sprintf("%s[%d]", key, i), "coordinates are fractions of the frame within 0..1 (found [%v, %v])", p[0], p[1])
 		}
 	}
-	if r.Kind() == "line" {
+	if r.Kind() == events.RuleLine {
 		switch {
 		case len(pts) != 2:
 			v.fail(key, "a line has exactly 2 points (found %d)", len(pts))
@@ -283,31 +288,30 @@ func (v *validator) rule(path string, r Rule, ids, names map[string]bool) {
 			v.fail(path+".dwell", "must not be negative (found %v)", r.Dwell.Duration)
 		}
 	}
-	if !anchors[r.Anchor] {
-		v.fail(path+".anchor", "want bottom-center, center or top-center (found %q)", r.Anchor)
+	if r.Anchor.Validate() != nil {
+		v.fail(path+".anchor", "want %s (found %q)", orList(toStrings(events.Anchors)), r.Anchor)
 	}
 	if r.Band != nil && !(*r.Band >= 0 && *r.Band < 0.5) {
 		v.fail(path+".band", "must be within 0..0.5 of the frame height (found %v)", *r.Band)
 	}
 	for i, cl := range r.Classes {
-		if cl == "" {
-			v.fail(fmt.Sprintf("%s.classes[%d]", path, i), "class name is empty")
-		}
+		v.name(fmt.Sprintf("%s.classes[%d]", path, i), cl)
 	}
 }
 
 func (v *validator) output() {
 	n := v.c.Output.NATS
-	if n.URL != "" {
+	if n.URL != "" && v.pathLen("output.nats.url", n.URL) {
 		u, err := url.Parse(n.URL)
 		if err != nil || (u.Scheme != "nats" && u.Scheme != "tls" && u.Scheme != "ws" && u.Scheme != "wss") || u.Host == "" {
-			v.fail("output.nats.url", "want nats://host:port (found %q)", Redact(n.URL))
+			v.fail("output.nats.url", "want nats://host:port (found %q)", bus.RedactURL(n.URL))
 		}
 	}
 	if n.Embedded.Port < 0 || n.Embedded.Port > 65535 {
 		v.fail("output.nats.embedded.port", "must be within 0..65535, 0 picks a free port (found %d)", n.Embedded.Port)
 	}
 	v.token("output.nats.prefix", n.Prefix)
+	v.pathLen("output.jsonl", v.c.Output.JSONL)
 	switch v.c.Log.Level {
 	case "debug", "info", "warn", "error":
 	default:
@@ -316,13 +320,4 @@ func (v *validator) output() {
 	if f := v.c.Log.Format; f != "text" && f != "json" {
 		v.fail("log.format", "want text or json (found %q)", f)
 	}
-}
-
-// Redact hides the password of a URL so it can be logged or shown in errors.
-func Redact(raw string) string {
-	u, err := url.Parse(raw)
-	if err != nil || u.User == nil {
-		return raw
-	}
-	return u.Redacted()
 }

@@ -14,12 +14,19 @@
 // coordinates (almost always -1), which this package ignores. Absent values
 // read as -1. Values are kept as written: unlike some evaluation kits this
 // package does not subtract 1 from left and top.
+//
+// A file is refused beyond the limits MaxFrame, MaxRows and MaxLineBytes,
+// with a *ParseError naming the line, so that a corrupt or hostile file
+// cannot make a reader, or a tool that sizes its work by frame number,
+// exhaust memory. Widths and heights must be non-negative and every value
+// finite.
 package motfmt
 
 import (
 	"bufio"
 	"bytes"
 	"compress/gzip"
+	"context"
 	"errors"
 	"fmt"
 	"io"
@@ -27,6 +34,22 @@ import (
 	"os"
 	"strconv"
 	"strings"
+)
+
+// Limits of a MOTChallenge file.
+const (
+	// MaxFrame is the largest frame number: frames run from 1 to MaxFrame,
+	// over 92 hours at 30 frames/s. The longest sequence of the MOT17
+	// reference set (../shared/reference/mot) has 1,050 frames.
+	MaxFrame = 10_000_000
+	// MaxRows is the most rows (non-blank lines) one file may hold; they
+	// take 72 bytes each once read, 1.4 GB at the limit, and reading that
+	// many takes about 20 s on one core. The largest file of the MOT17
+	// reference set, MOT17-04's ground truth, has 108,005.
+	MaxRows = 20_000_000
+	// MaxLineBytes bounds one line, blanks and line end included; lines of
+	// the reference set are under 40 bytes.
+	MaxLineBytes = 64 << 10
 )
 
 // Row is one line of a MOTChallenge file.
@@ -55,24 +78,45 @@ func (e *ParseError) Error() string {
 const (
 	minColumns = 6
 	maxColumns = 10
-	// maxLine bounds one line so that a corrupt file cannot exhaust memory.
-	maxLine = 64 << 10
+	// pollLines is how many lines ReadContext reads between two looks at
+	// its context (a few milliseconds).
+	pollLines = 1 << 13
 )
 
 // Read parses a MOTChallenge text stream. name is used in error messages
 // (usually the file path). Blank lines are skipped, fields may be padded
 // with spaces, and a line without any comma is split on white space. The
-// first malformed line stops the parse with a *ParseError.
+// first malformed line, or the first beyond a limit, stops the parse with a
+// *ParseError.
 func Read(r io.Reader, name string) ([]Row, error) {
+	return ReadContext(context.Background(), r, name)
+}
+
+// ReadContext is Read that gives up soon after ctx is done, with an error
+// wrapping ctx.Err().
+func ReadContext(ctx context.Context, r io.Reader, name string) ([]Row, error) {
+	return read(ctx, r, name, MaxRows)
+}
+
+// read is ReadContext with the row limit given.
+func read(ctx context.Context, r io.Reader, name string, maxRows int) ([]Row, error) {
 	sc := bufio.NewScanner(r)
-	sc.Buffer(make([]byte, 0, 4096), maxLine)
+	sc.Buffer(make([]byte, 0, 4096), MaxLineBytes)
 	var rows []Row
 	line := 0
 	for sc.Scan() {
 		line++
+		if line%pollLines == 0 {
+			if err := ctx.Err(); err != nil {
+				return nil, fmt.Errorf("read %s: interrupted at line %d: %w", name, line, err)
+			}
+		}
 		text := strings.TrimSpace(sc.Text())
 		if text == "" {
 			continue
+		}
+		if len(rows) == maxRows {
+			return nil, &ParseError{Name: name, Line: line, What: fmt.Sprintf("want at most %d rows in a file", maxRows), Found: text}
 		}
 		row, perr := parseLine(text)
 		if perr != nil {
@@ -83,7 +127,7 @@ func Read(r io.Reader, name string) ([]Row, error) {
 	}
 	if err := sc.Err(); err != nil {
 		if errors.Is(err, bufio.ErrTooLong) {
-			return nil, &ParseError{Name: name, Line: line + 1, What: fmt.Sprintf("want a line shorter than %d bytes", maxLine), Found: "…"}
+			return nil, &ParseError{Name: name, Line: line + 1, What: fmt.Sprintf("want a line shorter than %d bytes", MaxLineBytes), Found: "…"}
 		}
 		return nil, fmt.Errorf("read %s: %w", name, err)
 	}
@@ -93,6 +137,12 @@ func Read(r io.Reader, name string) ([]Row, error) {
 // ReadFile reads a MOTChallenge file, gunzipping it when its content starts
 // with the gzip magic bytes (whatever its name).
 func ReadFile(path string) ([]Row, error) {
+	return ReadFileContext(context.Background(), path)
+}
+
+// ReadFileContext is ReadFile that gives up soon after ctx is done, with an
+// error wrapping ctx.Err().
+func ReadFileContext(ctx context.Context, path string) ([]Row, error) {
 	f, err := os.Open(path)
 	if err != nil {
 		return nil, fmt.Errorf("read MOTChallenge file: %w", err)
@@ -108,7 +158,7 @@ func ReadFile(path string) ([]Row, error) {
 		defer zr.Close()
 		r = zr
 	}
-	return Read(r, path)
+	return ReadContext(ctx, r, path)
 }
 
 // Write writes rows in the MOT17 layout with the shortest decimal form of
@@ -116,9 +166,12 @@ func ReadFile(path string) ([]Row, error) {
 // written in the 10-column layout MOTChallenge expects for tracker results
 // ("…,conf,-1,-1,-1"); otherwise every row has 9 columns
 // ("frame,id,x,y,w,h,conf,class,vis"). Rows that Read would reject (frame
-// below 1, negative size, NaN or infinite values) are refused, so whatever
-// Write accepts Read gives back unchanged.
+// outside 1..MaxFrame, negative size, NaN or infinite values, more than
+// MaxRows) are refused, so whatever Write accepts Read gives back unchanged.
 func Write(w io.Writer, rows []Row) error {
+	if len(rows) > MaxRows {
+		return fmt.Errorf("write rows: want at most %d rows (found %d)", MaxRows, len(rows))
+	}
 	tenColumns := true
 	for i, r := range rows {
 		if what, found := check(r); what != "" {
@@ -158,15 +211,6 @@ func Write(w io.Writer, rows []Row) error {
 	return nil
 }
 
-// ByFrame groups rows by frame number, keeping their order within a frame.
-func ByFrame(rows []Row) map[int][]Row {
-	m := make(map[int][]Row)
-	for _, r := range rows {
-		m[r.Frame] = append(m[r.Frame], r)
-	}
-	return m
-}
-
 // parseLine parses one non-blank, trimmed line; the error lacks Name and Line.
 func parseLine(text string) (Row, *ParseError) {
 	var fields []string
@@ -198,8 +242,8 @@ func parseLine(text string) (Row, *ParseError) {
 	}
 	r := Row{Conf: -1, Class: -1, Visibility: -1}
 	frame, ok := parseWhole(fields[0], vals[0], strconv.IntSize)
-	if !ok || frame < 1 {
-		return Row{}, colErr(names, 0, "want a whole number of at least 1", fields[0])
+	if !ok || frame < 1 || frame > MaxFrame {
+		return Row{}, colErr(names, 0, frameRule, fields[0])
 	}
 	r.Frame = int(frame)
 	if r.ID, ok = parseWhole(fields[1], vals[1], 64); !ok {
@@ -226,6 +270,9 @@ func parseLine(text string) (Row, *ParseError) {
 	}
 	return r, nil
 }
+
+// frameRule is what a frame number must be.
+var frameRule = fmt.Sprintf("want a whole number from 1 to %d", MaxFrame)
 
 // Column names used in error messages, by 0-based index, for the 6..9-column
 // layout and for the 10-column one.
@@ -263,8 +310,8 @@ func parseWhole(s string, v float64, bits int) (int64, bool) {
 func check(r Row) (what, found string) {
 	num := func(v float64) string { return strconv.FormatFloat(v, 'g', -1, 64) }
 	switch {
-	case r.Frame < 1:
-		return "frame: want a whole number of at least 1", strconv.Itoa(r.Frame)
+	case r.Frame < 1 || r.Frame > MaxFrame:
+		return "frame: " + frameRule, strconv.Itoa(r.Frame)
 	case r.W < 0:
 		return "width: want a non-negative number", num(r.W)
 	case r.H < 0:

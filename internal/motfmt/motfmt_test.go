@@ -3,7 +3,9 @@ package motfmt
 import (
 	"bytes"
 	"compress/gzip"
+	"context"
 	"errors"
+	"io"
 	"math"
 	"os"
 	"path/filepath"
@@ -53,6 +55,11 @@ func TestReadRows(t *testing.T) {
 			[]Row{{Frame: 1, ID: 1, Conf: 1, Class: -1, Visibility: -1}}},
 		{"large id kept exactly", "1,9007199254740993,0,0,1,1",
 			[]Row{{Frame: 1, ID: 9007199254740993, W: 1, H: 1, Conf: -1, Class: -1, Visibility: -1}}},
+		{"frame at MaxFrame", "10000000,1,0,0,1,1\n1e7,2,0,0,1,1",
+			[]Row{
+				{Frame: MaxFrame, ID: 1, W: 1, H: 1, Conf: -1, Class: -1, Visibility: -1},
+				{Frame: MaxFrame, ID: 2, W: 1, H: 1, Conf: -1, Class: -1, Visibility: -1},
+			}},
 		{"empty input", "", nil},
 	}
 	for _, tt := range tests {
@@ -93,9 +100,29 @@ func TestReadErrors(t *testing.T) {
 		{"negative height", "1,1,1,1,1,-2",
 			`det.txt:1: column 6 (height): want a non-negative number (found "-2")`},
 		{"frame zero", "0,1,1,1,1,1",
-			`det.txt:1: column 1 (frame): want a whole number of at least 1 (found "0")`},
+			`det.txt:1: column 1 (frame): want a whole number from 1 to 10000000 (found "0")`},
 		{"frame fractional", "1.5,1,1,1,1,1",
-			`det.txt:1: column 1 (frame): want a whole number of at least 1 (found "1.5")`},
+			`det.txt:1: column 1 (frame): want a whole number from 1 to 10000000 (found "1.5")`},
+		{"frame negative", "-3,1,1,1,1,1",
+			`det.txt:1: column 1 (frame): want a whole number from 1 to 10000000 (found "-3")`},
+		// One such row made the scorer allocate 23 GB and the track command
+		// loop 2e9 times before the limit.
+		{"frame beyond MaxFrame", "1,1,1,1,1,1\n\n2000000000,1,1,1,1,1",
+			`det.txt:3: column 1 (frame): want a whole number from 1 to 10000000 (found "2000000000")`},
+		{"frame one beyond MaxFrame", "10000001,1,1,1,1,1",
+			`det.txt:1: column 1 (frame): want a whole number from 1 to 10000000 (found "10000001")`},
+		{"frame beyond MaxFrame in exponent form", "2e9,1,1,1,1,1",
+			`det.txt:1: column 1 (frame): want a whole number from 1 to 10000000 (found "2e9")`},
+		{"frame beyond int64", "1e300,1,1,1,1,1",
+			`det.txt:1: column 1 (frame): want a whole number from 1 to 10000000 (found "1e300")`},
+		{"id beyond int64", "1,1e19,1,1,1,1",
+			`det.txt:1: column 2 (id): want a whole number (found "1e19")`},
+		{"NaN width", "1,1,1,1,nan,1",
+			`det.txt:1: column 5 (width): want a finite number (found "nan")`},
+		{"infinite width", "1,1,1,1,+Inf,1",
+			`det.txt:1: column 5 (width): want a finite number (found "+Inf")`},
+		{"negative zero width is zero", "1,1,1,1,-0,1\n1,1,1,1,-1e-300,1",
+			`det.txt:2: column 5 (width): want a non-negative number (found "-1e-300")`},
 		{"id fractional", "1,2.5,1,1,1,1",
 			`det.txt:1: column 2 (id): want a whole number (found "2.5")`},
 		{"class fractional", "1,2,1,1,1,1,1,0.5,1",
@@ -121,11 +148,88 @@ func TestReadErrors(t *testing.T) {
 }
 
 func TestReadLineTooLong(t *testing.T) {
-	in := "1,1,1,1,1,1\n" + strings.Repeat(" ", maxLine+1) + "\n"
+	in := "1,1,1,1,1,1\n" + strings.Repeat(" ", MaxLineBytes+1) + "\n"
 	_, err := Read(strings.NewReader(in), "big.txt")
 	want := `big.txt:2: want a line shorter than 65536 bytes (found "…")`
 	if err == nil || err.Error() != want {
 		t.Fatalf("error = %v, want %s", err, want)
+	}
+	var pe *ParseError
+	if !errors.As(err, &pe) {
+		t.Errorf("error %T is not a *ParseError", err)
+	}
+	// A long line within the limit is read.
+	ok := "1,1,1,1,1,1" + strings.Repeat(" ", MaxLineBytes-100) + "\n"
+	if rows, err := Read(strings.NewReader(ok), "long.txt"); err != nil || len(rows) != 1 {
+		t.Errorf("line of %d bytes: %d rows, error %v", len(ok), len(rows), err)
+	}
+}
+
+// rowsReader serves n copies of one line without holding them in memory.
+type rowsReader struct {
+	line []byte
+	n    int // lines left
+	off  int // offset in the current line
+}
+
+func (r *rowsReader) Read(p []byte) (int, error) {
+	k := 0
+	for k < len(p) && r.n > 0 {
+		c := copy(p[k:], r.line[r.off:])
+		k += c
+		if r.off += c; r.off == len(r.line) {
+			r.off = 0
+			r.n--
+		}
+	}
+	if k == 0 {
+		return 0, io.EOF
+	}
+	return k, nil
+}
+
+// TestReadTooManyRows reads as many rows as the limit allows, then one
+// more. Reading MaxRows rows takes half a minute, so the test lowers the
+// limit; the message is the same with MaxRows.
+func TestReadTooManyRows(t *testing.T) {
+	const limit = 1000
+	rows, err := read(context.Background(), &rowsReader{line: []byte("1,1,1,1,1,1\n\n"), n: limit}, "many.txt", limit)
+	if err != nil || len(rows) != limit {
+		t.Fatalf("%d rows: read %d, error %v", limit, len(rows), err)
+	}
+	_, err = read(context.Background(), &rowsReader{line: []byte("7,1,1,1,1,1\n\n"), n: limit + 1}, "many.txt", limit)
+	want := `many.txt:2001: want at most 1000 rows in a file (found "7,1,1,1,1,1")`
+	if err == nil || err.Error() != want {
+		t.Fatalf("error = %v, want %s", err, want)
+	}
+	var pe *ParseError
+	if !errors.As(err, &pe) {
+		t.Errorf("error %T is not a *ParseError", err)
+	}
+}
+
+// ReadContext stops when its context is done, with an error naming the
+// file and wrapping the context's.
+func TestReadContextStops(t *testing.T) {
+	ctx, cancel := context.WithCancel(context.Background())
+	cancel()
+	_, err := ReadContext(ctx, &rowsReader{line: []byte("1,1,1,1,1,1\n"), n: MaxRows}, "det.txt")
+	if !errors.Is(err, context.Canceled) {
+		t.Fatalf("error = %v, want context.Canceled", err)
+	}
+	if want := "read det.txt: interrupted at line 8192: context canceled"; err.Error() != want {
+		t.Errorf("error = %v, want %s", err, want)
+	}
+
+	path := filepath.Join(t.TempDir(), "det.txt")
+	if err := os.WriteFile(path, []byte(strings.Repeat("1,-1,1,2,3,4,0.5\n", 10000)), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := ReadFileContext(ctx, path); !errors.Is(err, context.Canceled) {
+		t.Errorf("ReadFileContext error = %v, want context.Canceled", err)
+	}
+	if rows, err := ReadFileContext(context.Background(), path); err != nil || len(rows) != 10000 {
+		t.Errorf("ReadFileContext: %d rows, error %v", len(rows), err)
 	}
 }
 
@@ -199,8 +303,8 @@ func TestReadFileTUDCampus(t *testing.T) {
 		t.Errorf("got %d GT and %d tracker rows, want 359 and 222", len(gt), len(res))
 	}
 	last := 0
-	for f := range ByFrame(gt) {
-		last = max(last, f)
+	for _, r := range gt {
+		last = max(last, r.Frame)
 	}
 	if last != 71 {
 		t.Errorf("last GT frame %d, want 71", last)
@@ -290,7 +394,8 @@ func TestWriteRefusesUnreadableRows(t *testing.T) {
 		edit func(*Row)
 		want string
 	}{
-		{"frame zero", func(r *Row) { r.Frame = 0 }, "write row 1: frame: want a whole number of at least 1 (found 0)"},
+		{"frame zero", func(r *Row) { r.Frame = 0 }, "write row 1: frame: want a whole number from 1 to 10000000 (found 0)"},
+		{"frame beyond MaxFrame", func(r *Row) { r.Frame = MaxFrame + 1 }, "write row 1: frame: want a whole number from 1 to 10000000 (found 10000001)"},
 		{"negative width", func(r *Row) { r.W = -1 }, "write row 1: width: want a non-negative number (found -1)"},
 		{"negative height", func(r *Row) { r.H = -3.5 }, "write row 1: height: want a non-negative number (found -3.5)"},
 		{"NaN conf", func(r *Row) { r.Conf = math.NaN() }, "write row 1: want finite numbers (found NaN)"},
@@ -322,7 +427,7 @@ func TestWriteReadRoundTrip(t *testing.T) {
 		{
 			{Frame: 2, ID: 5, X: 10, Y: 20, W: 30, H: 40, Conf: 1, Class: 1, Visibility: 0.123456789},
 			{Frame: 1, ID: math.MinInt64, X: 10, Y: 20, W: 30, H: 40, Conf: 0, Class: 12, Visibility: -1},
-			{Frame: 1 << 40, ID: 0, X: 1, Y: 2, W: 3, H: 4, Conf: 2.5, Class: -1, Visibility: 0},
+			{Frame: MaxFrame, ID: 0, X: 1, Y: 2, W: 3, H: 4, Conf: 2.5, Class: -1, Visibility: 0},
 		},
 	}
 	for i, rows := range sets {
@@ -340,15 +445,6 @@ func TestWriteReadRoundTrip(t *testing.T) {
 	}
 }
 
-func TestByFrame(t *testing.T) {
-	rows := []Row{{Frame: 2, ID: 1}, {Frame: 1, ID: 2}, {Frame: 2, ID: 3}}
-	got := ByFrame(rows)
-	want := map[int][]Row{1: {{Frame: 1, ID: 2}}, 2: {{Frame: 2, ID: 1}, {Frame: 2, ID: 3}}}
-	if !reflect.DeepEqual(got, want) {
-		t.Errorf("ByFrame = %+v, want %+v", got, want)
-	}
-}
-
 // FuzzRead checks that Read never panics, that it returns either an error or
 // rows Write accepts, and that those rows survive a Write→Read round trip.
 func FuzzRead(f *testing.F) {
@@ -358,6 +454,7 @@ func FuzzRead(f *testing.F) {
 		"1 2 3 4 5 6",
 		"1.0,2.0,1e3,-0,0x1p-2,1_0,1\r\n\r\n",
 		"0,1,1,1,1,1", "1,1,1,1,-1,1", "1,1,NaN,1,1,1", ",,,,,,",
+		"10000000,1,1,1,1,1", "10000001,1,1,1,1,1", "2e9,1,1,1,1,1",
 	} {
 		f.Add([]byte(s))
 	}

@@ -2,32 +2,45 @@ package pipeline
 
 import (
 	"errors"
+	"fmt"
 	"log/slog"
+	"time"
+
+	"github.com/nats-io/nats.go"
 
 	"tallyd/capture"
+	"tallyd/events/bus"
 	"tallyd/internal/config"
 )
 
 // CheckReport is what a dry run found.
 type CheckReport struct {
 	Sources []CheckedSource
-	NATS    string // configured URL, password hidden
+	// Detector is the detector that was built (closed), for its description.
+	Detector Detector
+	// NATS is the configured server's URL with credentials hidden, or "" for
+	// the embedded server; NATSReply is what the server answered.
+	NATS      string
+	NATSReply string
 }
 
 // CheckedSource is one source opened by a dry run.
 type CheckedSource struct {
 	ID   string
-	Kind string
+	Kind capture.Kind
 	Info capture.Info
 }
 
-// Check opens every source and the detector without starting anything, and
-// reports every problem at once (as config.Errors).
+// brokerTimeout bounds the dry run's connection to an external server.
+const brokerTimeout = 5 * time.Second
+
+// Check opens every source, the detector and a connection to an external
+// NATS server without starting anything, and reports every problem at once
+// (as config.Errors).
 func Check(cfg *config.Config) (CheckReport, error) {
-	p := &Pipeline{cfg: cfg, opts: Options{Pace: capture.PaceMax}, checking: true}
-	p.log = slog.New(slog.DiscardHandler)
-	defer p.release()
-	rep := CheckReport{NATS: config.Redact(cfg.Output.NATS.URL)}
+	p := &Pipeline{cfg: cfg, opts: Options{Pace: capture.PaceMax}, checking: true, log: slog.New(slog.DiscardHandler)}
+	defer p.Close()
+	var rep CheckReport
 	var errs config.Errors
 	for i, sc := range cfg.Sources {
 		sr, err := p.openSource(i, sc)
@@ -35,13 +48,25 @@ func Check(cfg *config.Config) (CheckReport, error) {
 			errs = appendErr(errs, err)
 			continue
 		}
+		p.sources = append(p.sources, sr)
 		rep.Sources = append(rep.Sources, CheckedSource{ID: sc.ID, Kind: sc.Kind(), Info: sr.info})
 	}
-	det, err := buildDetector(cfg)
-	if err != nil {
+	if det, err := buildDetector(cfg); err != nil {
 		errs = appendErr(errs, err)
 	} else {
+		rep.Detector = det
+		errs = append(errs, checkClasses(cfg, det)...)
 		_ = det.Close()
+	}
+	if u := cfg.Output.NATS.URL; u != "" {
+		rep.NATS = bus.RedactURL(u)
+		nc, err := nats.Connect(u, nats.Name("tallyd-check-"+cfg.Site), nats.Timeout(brokerTimeout))
+		if err != nil {
+			errs = append(errs, cfg.Errorf("output.nats.url", "cannot reach %s: %v", rep.NATS, err))
+		} else {
+			rep.NATSReply = fmt.Sprintf("server %s, version %s", nc.ConnectedServerName(), nc.ConnectedServerVersion())
+			nc.Close()
+		}
 	}
 	if len(errs) > 0 {
 		return rep, errs
@@ -53,6 +78,10 @@ func appendErr(errs config.Errors, err error) config.Errors {
 	var fe config.FieldError
 	if errors.As(err, &fe) {
 		return append(errs, fe)
+	}
+	var fes config.Errors
+	if errors.As(err, &fes) {
+		return append(errs, fes...)
 	}
 	return append(errs, config.FieldError{Msg: err.Error()})
 }

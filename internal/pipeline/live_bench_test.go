@@ -160,9 +160,9 @@ func runCameras(b *testing.B, onnx string, frames [][]byte, n int, d time.Durati
 		r.meanFPS += fps / float64(len(after))
 		r.minFPS = min(r.minFPS, fps)
 		p50, p99 = max(p50, a.AgeP50ms), max(p99, a.AgeP99ms)
-		r.mailbox += a.DroppedMailbox - before[i].DroppedMailbox
-		r.old += a.DroppedOld - before[i].DroppedOld
-		r.dropped += (a.DroppedMailbox + a.DroppedOld + a.DroppedRate) - (before[i].DroppedMailbox + before[i].DroppedOld + before[i].DroppedRate)
+		r.mailbox += a.Dropped.Mailbox - before[i].Dropped.Mailbox
+		r.old += a.Dropped.TooOld - before[i].Dropped.TooOld
+		r.dropped += (a.Dropped.Mailbox + a.Dropped.TooOld + a.Dropped.ForRate) - (before[i].Dropped.Mailbox + before[i].Dropped.TooOld + before[i].Dropped.ForRate)
 		r.read += a.Read - before[i].Read
 	}
 	r.p50, r.p99 = p50, p99

@@ -12,6 +12,7 @@ import (
 	"tallyd/capture"
 	"tallyd/capture/scene"
 	"tallyd/capture/testsrv"
+	"tallyd/internal/testkit"
 )
 
 // statusOf returns one source's status.
@@ -104,15 +105,15 @@ log: {level: warn}
 			// test is that the source comes back and counting goes on, not
 			// seeing through dropped frames.
 			k := quietFrame(t, sc, 100, 30)
-			waitFor(t, 30*time.Second, fmt.Sprintf("the server to send frame %d", k), func() bool { return srv.FramesSent() >= k })
+			testkit.WaitFor(t, 30*time.Second, fmt.Sprintf("the server to send frame %d", k), func() bool { return srv.FramesSent() >= k })
 			tc.down(srv)
-			waitFor(t, 10*time.Second, "the source to notice the outage", func() bool { return statusOf(p, "cam").State != "up" })
+			testkit.WaitFor(t, 10*time.Second, "the source to notice the outage", func() bool { return statusOf(p, "cam").State != capture.StateUp })
 			other := statusOf(p, "other").Processed
-			waitFor(t, 5*time.Second, "the other source to go on", func() bool { return statusOf(p, "other").Processed >= other+20 })
+			testkit.WaitFor(t, 5*time.Second, "the other source to go on", func() bool { return statusOf(p, "other").Processed >= other+20 })
 			t.Logf("outage: cam state %q (%s)", statusOf(p, "cam").State, statusOf(p, "cam").Err)
 			tc.up(srv)
-			waitFor(t, 30*time.Second, "the camera to reconnect", func() bool { return statusOf(p, "cam").State == "up" })
-			waitFor(t, 40*time.Second, "the whole scene to be served", func() bool { return srv.FramesSent() >= sc.Frames()+10 })
+			testkit.WaitFor(t, 30*time.Second, "the camera to reconnect", func() bool { return statusOf(p, "cam").State == capture.StateUp })
+			testkit.WaitFor(t, 40*time.Second, "the whole scene to be served", func() bool { return srv.FramesSent() >= sc.Frames()+10 })
 			time.Sleep(500 * time.Millisecond)
 			cancel()
 			wg.Wait()
@@ -124,7 +125,7 @@ log: {level: warn}
 			lines, zones := RulesFor(cfg, "cam", 640, 360)
 			truth := SceneTruth(sc, lines, zones)
 			t.Logf("cam: read %d processed %d dropped(mailbox) %d; gate %+v, truth %+v", cam.Read, cam.Processed,
-				cam.DroppedMailbox, s.Rules["gate"], truth["gate"])
+				cam.Dropped.Mailbox, s.Rules["gate"], truth["gate"])
 			if got, want := s.Rules["gate"], truth["gate"]; got != want {
 				t.Errorf("counted %+v with an outage, truth %+v", got, want)
 			}
@@ -132,7 +133,7 @@ log: {level: warn}
 				t.Fatal(err)
 			}
 			srv.Close()
-			waitFor(t, 10*time.Second, "goroutines to settle", func() bool { return runtime.NumGoroutine() <= goroutines+2 })
+			testkit.WaitFor(t, 10*time.Second, "goroutines to settle", func() bool { return runtime.NumGoroutine() <= goroutines+2 })
 		})
 	}
 }
@@ -151,7 +152,7 @@ func TestUnreachableSourceDoesNotStopOthers(t *testing.T) {
 	ctx, cancel := context.WithCancel(context.Background())
 	done := make(chan error, 1)
 	go func() { done <- p.Run(ctx) }()
-	waitFor(t, 10*time.Second, "the other source to run and the camera to report why it is down", func() bool {
+	testkit.WaitFor(t, 10*time.Second, "the other source to run and the camera to report why it is down", func() bool {
 		cam, other := statusOf(p, "cam"), statusOf(p, "other")
 		return other.Processed >= 10 && cam.Err != ""
 	})
@@ -161,7 +162,7 @@ func TestUnreachableSourceDoesNotStopOthers(t *testing.T) {
 		t.Fatal(err)
 	}
 	t.Logf("cam %q: %s", cam.State, cam.Err)
-	if cam.Processed != 0 || (cam.State != "backing_off" && cam.State != "connecting") || strings.Contains(cam.Err, "hunter2") {
+	if cam.Processed != 0 || (cam.State != capture.StateBackingOff && cam.State != capture.StateConnecting) || strings.Contains(cam.Err, "hunter2") {
 		t.Errorf("unreachable camera: %+v (its reason must be shown, its password never)", cam)
 	}
 }

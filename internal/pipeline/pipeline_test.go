@@ -2,9 +2,13 @@ package pipeline
 
 import (
 	"context"
+	"errors"
 	"fmt"
+	"log/slog"
+	"net"
 	"os"
 	"path/filepath"
+	"strings"
 	"sync"
 	"testing"
 	"time"
@@ -16,6 +20,7 @@ import (
 	"tallyd/events"
 	"tallyd/events/bus"
 	"tallyd/internal/config"
+	"tallyd/internal/testkit"
 )
 
 func siteFile(t testing.TB, body string) *config.Config {
@@ -24,7 +29,7 @@ func siteFile(t testing.TB, body string) *config.Config {
 	if err := os.WriteFile(p, []byte(body), 0o644); err != nil {
 		t.Fatal(err)
 	}
-	cfg, err := config.Load(p)
+	cfg, err := Load(p)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -44,18 +49,6 @@ rules:
     dwell: 10s
 log: {level: warn}
 `
-
-// waitFor polls cond until it holds or the deadline passes.
-func waitFor(t *testing.T, d time.Duration, what string, cond func() bool) {
-	t.Helper()
-	deadline := time.Now().Add(d)
-	for !cond() {
-		if time.Now().After(deadline) {
-			t.Fatalf("timed out after %v waiting for %s", d, what)
-		}
-		time.Sleep(10 * time.Millisecond)
-	}
-}
 
 // collector subscribes to every tallyd event and keeps them.
 type collector struct {
@@ -115,7 +108,7 @@ func checkDelivery(t *testing.T, outputs string, external string) {
 	if s.EventsPublished < 10 {
 		t.Fatalf("only %d events published; the scene should give more", s.EventsPublished)
 	}
-	waitFor(t, 5*time.Second, "all events", func() bool { return int64(c.n()) >= s.EventsPublished })
+	testkit.WaitFor(t, 5*time.Second, "all events", func() bool { return int64(c.n()) >= s.EventsPublished })
 	time.Sleep(100 * time.Millisecond) // nothing more may arrive
 	c.mu.Lock()
 	defer c.mu.Unlock()
@@ -129,11 +122,11 @@ func checkDelivery(t *testing.T, outputs string, external string) {
 			t.Errorf("bad or duplicate event: %+v", ev)
 		}
 		ids[ev.ID] = true
-		perRule[ev.Data.Rule+"."+ev.Data.Kind]++
+		perRule[ev.Data.Rule+"."+string(ev.Data.Kind)]++
 	}
 	g, z := s.Rules["gate"], s.Rules["machines"]
-	if perRule["gate.in"] != g.In || perRule["gate.out"] != g.Out || perRule["machines.enter"] != z.Entries ||
-		perRule["machines.exit"] != z.Exits || perRule["machines.dwell"] != z.DwellAlerts {
+	if perRule["gate.in"] != g.In || perRule["gate.out"] != g.Out || perRule["machines.enter"] != z.Enter ||
+		perRule["machines.exit"] != z.Exit || perRule["machines.dwell"] != z.Dwell {
 		t.Errorf("events per rule %v do not match the summary %+v", perRule, s.Rules)
 	}
 }
@@ -229,7 +222,7 @@ func TestStopDrains(t *testing.T) {
 		t.Errorf("read %d processed %d dropped %d", s.FramesRead, s.FramesProcessed, s.FramesDropped)
 	}
 	for _, st := range p.Status() {
-		if st.State != "stopped" {
+		if st.State != capture.StateStopped {
 			t.Errorf("source %s state %q, want stopped", st.ID, st.State)
 		}
 	}
@@ -238,5 +231,74 @@ func TestStopDrains(t *testing.T) {
 	}
 	if err := p.Close(); err != nil {
 		t.Fatal(err)
+	}
+}
+
+// TestBrokerDownAtStart: an external NATS server that is down when the
+// daemon starts does not stop it (the reference says it reconnects
+// forever): Build succeeds, counting runs, and the events reach the server
+// once it comes up.
+func TestBrokerDownAtStart(t *testing.T) {
+	l, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	port := l.Addr().(*net.TCPAddr).Port
+	l.Close() // nothing listens there now
+	cfg := siteFile(t, "site: ferry-terminal\nsources:\n  - id: walkway\n    scene: {seed: 5, duration: 60s, crossings: 10, visitors: 3}\n"+
+		sceneRules+fmt.Sprintf("output:\n  nats:\n    url: nats://127.0.0.1:%d\n", port))
+	p, err := Build(cfg, Options{Pace: capture.PaceMax})
+	if err != nil {
+		t.Fatalf("Build with the broker down: %v", err)
+	}
+	defer p.Close()
+	srv, err := bus.StartEmbedded("127.0.0.1", port, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer srv.Shutdown()
+	c := subscribe(t, srv.URL())
+	if err := p.Run(context.Background()); err != nil {
+		t.Fatal(err)
+	}
+	s := p.Summary()
+	testkit.WaitFor(t, 10*time.Second, "every event at the late server", func() bool { return int64(c.n()) >= s.EventsPublished })
+	if s.EventsPublished == 0 || s.EventsFailed != 0 {
+		t.Errorf("published %d, failed %d", s.EventsPublished, s.EventsFailed)
+	}
+}
+
+// failingPublisher refuses every event.
+type failingPublisher struct{}
+
+func (failingPublisher) Publish(context.Context, events.Event) error {
+	return errors.New("no responders")
+}
+
+// TestPublishFailuresCounted: events a publisher refuses are counted per
+// source and in the summary, and logged once per period with a count — not
+// once forever, not once per event.
+func TestPublishFailuresCounted(t *testing.T) {
+	cfg := siteFile(t, "site: ferry-terminal\nsources:\n  - id: walkway\n    scene: {seed: 5, duration: 60s, crossings: 10, visitors: 3}\n"+
+		sceneRules+"output:\n  nats:\n    embedded: {port: 0}\n")
+	var logs testkit.Buffer
+	p, err := Build(cfg, Options{Pace: capture.PaceMax, Log: slog.New(slog.NewTextHandler(&logs, nil))})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer p.Close()
+	p.addOutlet("broken", failingPublisher{})
+	if err := p.Run(context.Background()); err != nil {
+		t.Fatal(err)
+	}
+	s := p.Summary()
+	st := p.Status()[0]
+	lines := strings.Count(logs.String(), `msg="publishing failed"`)
+	t.Logf("failed %d events, %d log lines", s.EventsFailed, lines)
+	if s.EventsFailed < 10 || s.EventsPublished != 0 || st.EventsFailed != s.EventsFailed {
+		t.Errorf("summary failed %d published %d, status failed %d", s.EventsFailed, s.EventsPublished, st.EventsFailed)
+	}
+	if lines == 0 || int64(lines) >= s.EventsFailed || !strings.Contains(logs.String(), "sink=broken") {
+		t.Errorf("%d log lines for %d failures:\n%s", lines, s.EventsFailed, logs.String())
 	}
 }

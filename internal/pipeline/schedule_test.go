@@ -39,11 +39,11 @@ func TestFairShare(t *testing.T) {
 	}
 	mean := sum / float64(len(st))
 	for _, s := range st {
-		t.Logf("%s: read %d processed %d dropped(mailbox) %d", s.ID, s.Read, s.Processed, s.DroppedMailbox)
+		t.Logf("%s: read %d processed %d dropped(mailbox) %d", s.ID, s.Read, s.Processed, s.Dropped.Mailbox)
 		if s.Processed == 0 || float64(s.Processed) < 0.9*mean || float64(s.Processed) > 1.1*mean {
 			t.Errorf("%s processed %d frames; mean %.1f: not within 10%%", s.ID, s.Processed, mean)
 		}
-		if s.DroppedMailbox == 0 {
+		if s.Dropped.Mailbox == 0 {
 			t.Errorf("%s dropped nothing although the detector is overloaded", s.ID)
 		}
 	}
@@ -69,7 +69,7 @@ func TestMaxAge(t *testing.T) {
 	s := p.Summary()
 	old := int64(0)
 	for _, st := range p.Status() {
-		old += st.DroppedOld
+		old += st.Dropped.TooOld
 	}
 	if old == 0 {
 		t.Error("no frame dropped for age")

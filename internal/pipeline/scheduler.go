@@ -2,12 +2,9 @@ package pipeline
 
 import (
 	"context"
-	"fmt"
 	"sync"
-	"time"
 
 	"tallyd/capture"
-	"tallyd/events"
 )
 
 // The detect stage is shared by every source: one or more detect workers take
@@ -16,81 +13,16 @@ import (
 // none starves. A source is never in two workers at once, which keeps its
 // frames in order and its tracker and background model single-threaded.
 
-// Run processes until every source has ended or ctx is cancelled, then
-// drains what was already captured, closes open zone stays and flushes the
-// publishers. It returns the first processing error.
-func (p *Pipeline) Run(ctx context.Context) error {
-	// Processing gets its own context: a stop signal ends capture first, and
-	// frames already captured are still processed and their events flushed.
-	procCtx, cancelProc := context.WithCancel(context.Background())
-	defer cancelProc()
-	s := &scheduler{p: p, ready: make(chan struct{}, 1)}
-	for _, sr := range p.sources {
-		sr.worker.Out.Notify(s.ready)
-		sr.worker.OnLost = func(l capture.Lost) {
-			sr.lostConn.Store(l.Conn)
-			s.poke()
-		}
-	}
-	var capWG, procWG sync.WaitGroup
-	errs := make(chan error, len(p.sources)+p.opts.workers())
-	for _, sr := range p.sources {
-		capWG.Add(1)
-		go func() {
-			defer capWG.Done()
-			if err := sr.worker.Run(ctx); err != nil {
-				p.log.Error("source failed", "source", sr.id, "err", err)
-				errs <- err
-			}
-			s.poke()
-		}()
-	}
-	for range p.opts.workers() {
-		procWG.Add(1)
-		go func() {
-			defer procWG.Done()
-			if err := s.work(procCtx); err != nil {
-				errs <- err
-				cancelProc()
-			}
-		}()
-	}
-	stopStatus := p.startStatus()
-	done := make(chan struct{})
-	go func() { capWG.Wait(); procWG.Wait(); close(done) }()
-	select {
-	case <-done:
-	case <-ctx.Done():
-		select {
-		case <-done:
-		case <-time.After(p.opts.ShutdownTimeout):
-			p.log.Error("shutdown deadline passed; stopping processing", "timeout", p.opts.ShutdownTimeout)
-			cancelProc()
-			<-done
-		}
-	}
-	stopStatus()
-	flushErr := p.drain()
-	close(errs)
-	for err := range errs {
-		return err
-	}
-	return flushErr
-}
-
-func (o Options) workers() int {
-	if o.Workers > 0 {
-		return o.Workers
-	}
-	return 1
-}
-
 type scheduler struct {
 	p     *Pipeline
 	ready chan struct{} // poked when any source has a frame, ends, or drops
 
-	mu   sync.Mutex // guards next and each sourceRun's busy/finished
+	mu   sync.Mutex // guards next and each sourceRun's sched
 	next int        // round-robin start
+}
+
+func newScheduler(p *Pipeline) *scheduler {
+	return &scheduler{p: p, ready: make(chan struct{}, 1)}
 }
 
 func (s *scheduler) poke() {
@@ -100,13 +32,20 @@ func (s *scheduler) poke() {
 	}
 }
 
-// job is one unit of work claimed for a source: a frame, a lost-source
-// clean-up, or the end of the source.
+// jobKind is what a claimed job asks of the detect worker.
+type jobKind int
+
+const (
+	jobFrame jobKind = iota // process a frame
+	jobLost                 // close what a lost connection held open
+	jobEnd                  // the source ended: close its zone stays
+)
+
+// job is one unit of work claimed for a source.
 type job struct {
+	kind  jobKind
 	sr    *sourceRun
-	frame *capture.Frame
-	lost  bool
-	end   bool
+	frame *capture.Frame // jobFrame only
 }
 
 // claim takes up to max jobs, at most one per source, starting after the
@@ -120,27 +59,27 @@ func (s *scheduler) claim(max int) ([]job, bool) {
 	for k := 0; k < n && len(jobs) < max; k++ {
 		i := (s.next + k) % n
 		sr := s.p.sources[i]
-		if sr.finished {
+		if sr.sched.finished {
 			continue
 		}
 		allDone = false
-		if sr.busy {
+		if sr.sched.busy {
 			continue
 		}
 		var j job
 		switch f, ok := sr.worker.Out.TryGet(); {
 		case ok:
-			j = job{sr: sr, frame: f}
+			j = job{kind: jobFrame, sr: sr, frame: f}
 		case sr.worker.Out.Done():
-			j = job{sr: sr, end: true}
-		case sr.lostConn.Load() > sr.closedFor:
+			j = job{kind: jobEnd, sr: sr}
+		case sr.lostConn.Load() > sr.cursor.closedFor:
 			// Lost and nothing newer waiting: close what it held open now
 			// rather than when the camera comes back.
-			j = job{sr: sr, lost: true}
+			j = job{kind: jobLost, sr: sr}
 		default:
 			continue
 		}
-		sr.busy = true
+		sr.sched.busy = true
 		jobs = append(jobs, j)
 		s.next = (i + 1) % n
 	}
@@ -150,16 +89,17 @@ func (s *scheduler) claim(max int) ([]job, bool) {
 func (s *scheduler) release(jobs []job) {
 	s.mu.Lock()
 	for _, j := range jobs {
-		j.sr.busy = false
-		if j.end {
-			j.sr.finished = true
+		j.sr.sched.busy = false
+		if j.kind == jobEnd {
+			j.sr.sched.finished = true
 		}
 	}
 	s.mu.Unlock()
 	s.poke() // another worker may be waiting for one of these sources
 }
 
-// work is one detect worker's loop.
+// work is one detect worker's loop: claim, process, release, until every
+// source has finished or ctx is cancelled.
 func (s *scheduler) work(ctx context.Context) error {
 	p := s.p
 	for {
@@ -176,7 +116,7 @@ func (s *scheduler) work(ctx context.Context) error {
 				return nil
 			}
 		}
-		err := s.run(ctx, jobs)
+		err := p.process(ctx, jobs)
 		s.release(jobs)
 		if err != nil {
 			return err
@@ -184,94 +124,11 @@ func (s *scheduler) work(ctx context.Context) error {
 	}
 }
 
-// run does the claimed jobs: age and motion checks, one Detect call for the
-// frames that remain, then tracking, rules and publishing per source.
-func (s *scheduler) run(ctx context.Context, jobs []job) error {
-	p := s.p
-	var batch []*capture.Frame
-	var owners []*sourceRun
-	for _, j := range jobs {
-		switch {
-		case j.lost:
-			p.closeLost(ctx, j.sr, j.sr.lostConn.Load())
-		case j.end:
-			p.closeSource(ctx, j.sr, events.ReasonStreamEnd)
-		default:
-			f := j.frame
-			sr := j.sr
-			// A frame from a newer connection: the old one's tracks end
-			// first (backstop for a loss report that a newer frame overtook).
-			if sr.conn != 0 && f.Conn != sr.conn && sr.closedFor < sr.conn {
-				p.closeLost(ctx, sr, sr.conn)
-			}
-			sr.conn = f.Conn
-			if w, h := f.Mat.Cols(), f.Mat.Rows(); w != sr.w || h != sr.h {
-				if sr.engine != nil {
-					p.closeSource(ctx, sr, events.ReasonSourceLost)
-					sr.resetTracking()
-				}
-				p.setupRules(sr, w, h)
-			}
-			if why := sr.skip(f); why != "" {
-				j.sr.countDrop(why)
-				f.Close()
-				continue
-			}
-			batch = append(batch, f)
-			owners = append(owners, j.sr)
-		}
+// batchSize is how many frames one Detect call may take: the detector's own
+// batch limit when it has one (BatchSizer), else 1.
+func (p *Pipeline) batchSize() int {
+	if b, ok := p.det.(BatchSizer); ok && b.BatchSize() > 1 {
+		return b.BatchSize()
 	}
-	if len(batch) == 0 {
-		return nil
-	}
-	start := time.Now()
-	dets, err := p.det.Detect(ctx, batch)
-	p.detectCalls.Add(1)
-	for _, f := range batch {
-		f.Close()
-	}
-	if err != nil {
-		return fmt.Errorf("detect: %w", err)
-	}
-	detectTime := time.Since(start)
-	for i, f := range batch {
-		sr := owners[i]
-		res := sr.tracker.Update(f.PTS, dets[i])
-		if sr.tracksOut != nil {
-			if err := sr.tracksOut.write(int(f.Seq)+1, f.PTS, res); err != nil {
-				return fmt.Errorf("source %s: write tracks: %w", sr.id, err)
-			}
-		}
-		p.publishFrom(ctx, sr, f.Captured, sr.engine.Step(f.Seq, f.PTS, res))
-		sr.processed.Add(1)
-		sr.ages.add(float64(time.Since(f.Captured)) / float64(time.Millisecond))
-		sr.detectTime.Add(int64(detectTime) / int64(len(batch)))
-		sr.lastSeq, sr.lastPTS, sr.lastCaptured = f.Seq, f.PTS, f.Captured
-	}
-	return nil
-}
-
-// closeSource ends every zone stay open on a source.
-func (p *Pipeline) closeSource(ctx context.Context, sr *sourceRun, reason string) {
-	if sr.engine == nil {
-		return // never delivered a frame
-	}
-	p.publishFrom(ctx, sr, sr.lastCaptured, sr.engine.CloseAll(sr.lastSeq, sr.lastPTS, reason))
-}
-
-// closeLost ends what a lost connection held open: zone stays (reason
-// source_lost), tracks, the detector's and the gate's memory of the scene.
-func (p *Pipeline) closeLost(ctx context.Context, sr *sourceRun, conn int64) {
-	if conn <= sr.closedFor {
-		return
-	}
-	sr.closedFor = conn
-	p.closeSource(ctx, sr, events.ReasonSourceLost)
-	sr.resetTracking()
-	if f, ok := p.det.(Forgetter); ok {
-		f.Forget(sr.id)
-	}
-	if sr.gate != nil {
-		sr.gate.reset()
-	}
+	return 1
 }

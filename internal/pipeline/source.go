@@ -1,164 +1,121 @@
 package pipeline
 
 import (
-	"bufio"
-	"context"
 	"fmt"
-	"os"
-	"path/filepath"
-	"sort"
-	"strings"
-	"sync"
 	"sync/atomic"
 	"time"
 
 	"tallyd/capture"
 	"tallyd/capture/scene"
+	"tallyd/detect/motion"
 	"tallyd/events"
-	"tallyd/internal/config"
-	"tallyd/internal/motfmt"
 	"tallyd/track"
 )
 
-// Forgetter is a detector that keeps per-source state (a background model)
-// and can drop it when a source reconnects.
-type Forgetter interface {
-	Forget(source string)
-}
-
-// sourceRun is everything owned for one source.
+// sourceRun is everything the pipeline holds for one source. Its parts have
+// different owners, so they are kept apart: settings are fixed at Build; the
+// stages and the cursor belong to whichever detect worker holds the source
+// (the scheduler gives a source to one worker at a time); sched is guarded by
+// the scheduler's lock; counters are atomic.
 type sourceRun struct {
-	id         string
-	cfg        config.Source
-	start      time.Time // wall time of the source's frame 0 for event times
-	w, h       int       // frame size the rules were converted for (0 until known)
-	info       capture.Info
-	worker     *capture.Worker
-	newTracker func() Tracker
-	tracker    Tracker
-	engine     *events.Engine
-	scene      *scene.Scene // generated sources only, for the truth
-	lines      []events.LineRule
-	zones      []events.ZoneRule
-	maxAge     time.Duration // frames older than this when their turn comes are dropped (0: never)
-	gate       *motionGate   // nil: every frame is detected
-
-	// Scheduler state, guarded by scheduler.mu.
-	busy, finished bool
-	// Owned by whichever detect worker holds the source (busy).
-	conn         int64 // connection of the last frame processed (live sources)
-	closedFor    int64 // last connection whose tracks were closed as lost
-	lastSeq      int64
-	lastPTS      time.Duration
-	lastCaptured time.Time
-
-	lostConn   atomic.Int64 // the last connection reported lost by the capture worker
-	processed  atomic.Int64
-	droppedOld atomic.Int64
-	gated      atomic.Int64
-	detectTime atomic.Int64 // nanoseconds in Detect, shared out per frame
-	ages       latencies
-	tracksOut  *tracksFile // nil unless tracks are written
+	id     string
+	set    sourceSettings
+	worker *capture.Worker
+	info   capture.Info // as opened
+	scene  *scene.Scene // generated sources only, for the truth
+	tracks *tracksFile  // nil unless tracks are written
+	stages sourceStages
+	cursor cursor
+	sched  schedState
+	count  counters
+	// lostConn is the last connection the capture worker reported lost.
+	lostConn atomic.Int64
 }
 
-// skip says why a frame is not worth detecting ("" when it is).
-func (sr *sourceRun) skip(f *capture.Frame) string {
-	if sr.maxAge > 0 && time.Since(f.Captured) > sr.maxAge {
-		return "too_old"
+// sourceSettings are a source's settings from the site file, in stage form.
+type sourceSettings struct {
+	start   time.Time          // wall time of frame 0, for event times
+	maxAge  time.Duration      // frames older than this when their turn comes are dropped (0: never)
+	gate    *motion.GateConfig // nil: every frame is detected
+	tracker track.Settings
+}
+
+// sourceStages are the per-source stage objects after the detector.
+type sourceStages struct {
+	w, h    int // frame size the rules were converted for (0 until known)
+	lines   []events.LineRule
+	zones   []events.ZoneRule
+	gate    *motion.Gate
+	tracker Tracker
+	engine  *events.Engine // nil until the first frame's size is known
+}
+
+// cursor is where the source's processing stands.
+type cursor struct {
+	conn      int64 // connection of the last frame processed (live sources)
+	closedFor int64 // last connection whose tracks were closed as lost
+	seq       int64 // of the last frame processed
+	pts       time.Duration
+	captured  time.Time
+}
+
+// schedState is the scheduler's view of a source.
+type schedState struct {
+	busy     bool // claimed by a detect worker
+	finished bool // its end was processed
+}
+
+// setupRules converts the source's rules to pixels of its w x h frames and
+// starts its rule engine and motion gate; called again when a reconnected
+// camera delivers another size.
+func (sr *sourceRun) setupRules(p *Pipeline, w, h int) {
+	st := &sr.stages
+	st.w, st.h = w, h
+	st.lines, st.zones = RulesFor(p.cfg, sr.id, w, h)
+	if st.gate != nil {
+		_ = st.gate.Close()
+		st.gate = nil
 	}
-	if sr.gate != nil && !sr.gate.moving(f) {
-		return "gated"
+	if g := sr.set.gate; g != nil {
+		st.gate = motion.NewGate(*g, w, h, gateRegion(st.lines, st.zones))
+	}
+	st.engine = events.NewEngine(events.Meta{Site: p.cfg.Site, Source: sr.id, Start: sr.set.start}, st.lines, st.zones)
+}
+
+// admit says why a frame is not worth detecting ("" when it is).
+func (sr *sourceRun) admit(f *capture.Frame) DropReason {
+	if sr.set.maxAge > 0 && time.Since(f.Captured) > sr.set.maxAge {
+		return DropTooOld
+	}
+	if g := sr.stages.gate; g != nil && !g.Moving(f) {
+		return DropGated
 	}
 	return ""
 }
 
-func (sr *sourceRun) countDrop(why string) {
-	switch why {
-	case "too_old":
-		sr.droppedOld.Add(1)
-	case "gated":
-		sr.gated.Add(1)
+// startTracker builds the source's tracker; Build calls it first, so
+// settings the tracker refuses stop the start.
+func (sr *sourceRun) startTracker() error {
+	tr, err := sr.set.tracker.New()
+	if err != nil {
+		return err
 	}
-}
-
-// resetTracking starts a fresh tracker after the source dropped: its tracks
-// ended with the outage.
-func (sr *sourceRun) resetTracking() { sr.tracker = sr.newTracker() }
-
-// publishFrom stamps each event with its frame's age and publishes it.
-func (p *Pipeline) publishFrom(ctx context.Context, sr *sourceRun, captured time.Time, evs []events.Event) {
-	if len(evs) == 0 {
-		return
-	}
-	for i := range evs {
-		if !captured.IsZero() {
-			ms := float64(time.Since(captured)) / float64(time.Millisecond)
-			evs[i].Data.FrameAgeMS = &ms
-		}
-	}
-	p.publish(ctx, evs)
-}
-
-// latencies keeps the most recent frame ages (capture to the end of
-// publishing the frame's events) for percentiles.
-type latencies struct {
-	mu  sync.Mutex
-	buf [1024]float64
-	n   int
-}
-
-func (l *latencies) add(ms float64) {
-	l.mu.Lock()
-	l.buf[l.n%len(l.buf)] = ms
-	l.n++
-	l.mu.Unlock()
-}
-
-// percentiles returns p50 and p99 of the recent ages (0 when none).
-func (l *latencies) percentiles() (p50, p99 float64) {
-	l.mu.Lock()
-	n := min(l.n, len(l.buf))
-	v := append([]float64(nil), l.buf[:n]...)
-	l.mu.Unlock()
-	if n == 0 {
-		return 0, 0
-	}
-	sort.Float64s(v)
-	return v[(n-1)*50/100], v[(n-1)*99/100]
-}
-
-// tracksFile streams one source's tracks in the MOTChallenge text format.
-type tracksFile struct {
-	f *os.File
-	w *bufio.Writer
-}
-
-func (p *Pipeline) openTrackFiles(path string) error {
-	for _, sr := range p.sources {
-		name := path
-		if len(p.sources) > 1 {
-			ext := filepath.Ext(path)
-			name = strings.TrimSuffix(path, ext) + "-" + sr.id + ext
-		}
-		f, err := os.Create(name)
-		if err != nil {
-			return fmt.Errorf("tracks file: %w", err)
-		}
-		tf := &tracksFile{f: f, w: bufio.NewWriter(f)}
-		sr.tracksOut = tf
-		p.drains = append(p.drains, tf.close)
-	}
+	sr.stages.tracker = tr
 	return nil
 }
 
-func (t *tracksFile) write(frame int, ts time.Duration, res track.Result) error {
-	return motfmt.Write(t.w, track.OutputRows(frame, ts, res, track.DefaultLostOutput))
+// resetTracker starts a fresh tracker after the source's tracks ended (an
+// outage, a new frame size).
+func (sr *sourceRun) resetTracker() {
+	if err := sr.startTracker(); err != nil {
+		panic(fmt.Sprintf("source %s: tracker settings accepted at start now refused: %v", sr.id, err))
+	}
 }
 
-func (t *tracksFile) close() error {
-	err := t.w.Flush()
-	if cerr := t.f.Close(); err == nil {
-		err = cerr
+// closeStages releases the per-source OpenCV objects.
+func (sr *sourceRun) closeStages() {
+	if sr.stages.gate != nil {
+		_ = sr.stages.gate.Close()
+		sr.stages.gate = nil
 	}
-	return err
 }

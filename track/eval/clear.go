@@ -1,5 +1,13 @@
 package eval
 
+import (
+	"context"
+	"fmt"
+	"slices"
+
+	"tallyd/track"
+)
+
 // clearCounts are the summable CLEAR MOT results of one sequence.
 type clearCounts struct {
 	tp, fn, fp, idsw int
@@ -16,8 +24,8 @@ const continueBonus = 1000
 
 // clearMOT computes the CLEAR MOT counts: a pair is eligible when its
 // similarity is at least thr (less machine epsilon), and in each frame one
-// maximum-weight assignment picks the matches.
-func clearMOT(seq *sequence, thr float64, m *matcher) clearCounts {
+// maximum-weight assignment picks the matches. It stops with ctx's error.
+func clearMOT(ctx context.Context, seq *sequence, thr float64, m *track.Assigner) (clearCounts, error) {
 	var c clearCounts
 	n := seq.numGT
 	count := make([]int32, n)   // frames in which each gt id is present
@@ -27,16 +35,20 @@ func clearMOT(seq *sequence, thr float64, m *matcher) clearCounts {
 	// frame (for ID switches); prevTr the one it was matched to in the
 	// previous frame that held both gt and tracker boxes (for continuation
 	// and fragmentation). -1 = none.
-	lastTr := fill(make([]int32, n), -1)
-	prevTr := fill(make([]int32, n), -1)
+	lastTr := slices.Repeat([]int32{-1}, n)
+	prevTr := slices.Repeat([]int32{-1}, n)
 	var (
 		prevSet []int32 // gt ids with prevTr set
-		edges   []edge
+		edges   []track.Pair
 		rowTo   []int32
 		nowSet  []int32
+		poll    poller
 	)
 	for fi := range seq.frames {
 		f := &seq.frames[fi]
+		if err := poll.check(ctx, len(f.pairs)+1); err != nil {
+			return c, err
+		}
 		if len(f.gt) == 0 {
 			c.fp += len(f.tr)
 			continue
@@ -51,7 +63,7 @@ func clearMOT(seq *sequence, thr float64, m *matcher) clearCounts {
 			continue
 		}
 		edges = edges[:0]
-		for k, p := range f.pairs {
+		for _, p := range f.pairs {
 			if p.sim < thr-eps {
 				continue
 			}
@@ -59,20 +71,24 @@ func clearMOT(seq *sequence, thr float64, m *matcher) clearCounts {
 			if prevTr[f.gt[p.g]] == f.tr[p.t] {
 				w += continueBonus
 			}
-			edges = append(edges, edge{r: p.g, c: p.t, p: int32(k), w: w})
+			edges = append(edges, track.Pair{Row: p.g, Col: p.t, Weight: w})
 		}
-		rowTo = grow(rowTo, len(f.gt))
-		m.match(len(f.gt), len(f.tr), edges, rowTo)
+		rowTo = slices.Grow(rowTo[:0], len(f.gt))[:len(f.gt)]
+		if err := m.AssignContext(ctx, len(f.gt), len(f.tr), edges, rowTo); err != nil {
+			return c, fmt.Errorf("CLEAR matching: %w", err)
+		}
 
 		for _, g := range f.gt {
 			count[g]++
 		}
 		nowSet = nowSet[:0]
-		for _, e := range edges {
-			if rowTo[e.r] != e.c {
+		// A frame holds each (gt, tracker) pair once, so the pair a row is
+		// matched to is the only one of the frame joining the two.
+		for _, p := range f.pairs {
+			if rowTo[p.g] != p.t {
 				continue
 			}
-			g, t := f.gt[e.r], f.tr[e.c]
+			g, t := f.gt[p.g], f.tr[p.t]
 			if lastTr[g] >= 0 && lastTr[g] != t {
 				c.idsw++
 			}
@@ -83,7 +99,7 @@ func clearMOT(seq *sequence, thr float64, m *matcher) clearCounts {
 			}
 			nowSet = append(nowSet, g, t)
 			c.tp++
-			c.iouSum += f.pairs[e.p].sim
+			c.iouSum += p.sim
 		}
 		for _, g := range prevSet {
 			prevTr[g] = -1
@@ -113,5 +129,5 @@ func clearMOT(seq *sequence, thr float64, m *matcher) clearCounts {
 		}
 	}
 	c.ml = n - c.mt - c.pt
-	return c
+	return c, nil
 }

@@ -21,11 +21,17 @@
 //     The ground truth's flag (column 7) is read as a whole number, so 0.5
 //     counts as 0. Tracker rows are never filtered by score or class.
 //
-// Evaluate scores one sequence; Combine (or an Accumulator) merges several
-// sequences into one result the way the benchmark's overall row is made.
+// Evaluate scores one sequence (EvaluateContext when it must stop on a
+// signal); Combine (or an Accumulator) merges several sequences into one
+// result the way the benchmark's overall row is made.
+//
+// Memory grows with the rows and the overlapping pairs of boxes, never with
+// frame numbers or ids: frames without any row cost nothing. MaxOverlaps
+// and the assignment limit bound what a hostile file can make it hold.
 package eval
 
 import (
+	"context"
 	"errors"
 	"fmt"
 	"slices"
@@ -58,6 +64,25 @@ const (
 // DefaultIoU is the overlap a tracker box needs with a ground-truth box to
 // count as a match in the CLEAR and identity metrics.
 const DefaultIoU = 0.5
+
+// Limits of one evaluation. Beyond them Evaluate fails with an error that
+// names the limit rather than exhaust memory or run for hours. The
+// assignment solver has its own: a group of ground-truth and tracker boxes
+// (or ids, for IDF1) linked by eligible pairs is one assignment problem,
+// and one of more than track.MaxAssignCells cells (8,192 × 8,192) fails
+// the evaluation with an error wrapping track.ErrAssignTooLarge.
+const (
+	// MaxFrames is the longest sequence Options.Frames may ask for: the
+	// frame limit of the MOTChallenge reader (motfmt.MaxFrame).
+	MaxFrames = motfmt.MaxFrame
+	// MaxOverlaps is the most pairs of overlapping ground-truth and tracker
+	// boxes a sequence may hold, summed over its frames (24 bytes each, so
+	// about 1.2 GB at the limit). Real sequences hold fewer pairs than rows
+	// (MOT17-04-SDP scored with the Lif_T tracker: 102,847 pairs for
+	// 145,509 rows); the limit stops files with thousands of boxes stacked
+	// in one place.
+	MaxOverlaps = 50_000_000
+)
 
 // Options tunes an evaluation. The zero value evaluates with the default
 // threshold, auto-detected rules and the sequence length taken from the data.
@@ -138,6 +163,7 @@ type settings struct {
 	classes          []int // scored ground-truth classes
 	distractors      []int
 	checkClasses     bool // every ground-truth class must be a MOTChallenge one
+	maxOverlaps      int  // MaxOverlaps (lowered by tests)
 }
 
 // resolve validates opt, reporting every invalid option at once, and fills
@@ -147,7 +173,7 @@ func (opt Options) resolve(gt, tracks []motfmt.Row) (settings, error) {
 	fail := func(field, format string, args ...any) {
 		errs = append(errs, &OptionError{Field: field, Msg: fmt.Sprintf(format, args...)})
 	}
-	s := settings{iou: opt.IoU, suppressIoU: opt.SuppressIoU, rules: opt.Rules, frames: opt.Frames}
+	s := settings{iou: opt.IoU, suppressIoU: opt.SuppressIoU, rules: opt.Rules, frames: opt.Frames, maxOverlaps: MaxOverlaps}
 	if s.iou == 0 {
 		s.iou = DefaultIoU
 	}
@@ -160,8 +186,11 @@ func (opt Options) resolve(gt, tracks []motfmt.Row) (settings, error) {
 	if !(s.suppressIoU > 0 && s.suppressIoU <= 1) {
 		fail("suppress_iou", "want a number within (0, 1] (found %v)", opt.SuppressIoU)
 	}
-	if s.frames < 0 {
+	switch {
+	case s.frames < 0:
 		fail("frames", "want 0 (from the data) or a positive sequence length (found %d)", opt.Frames)
+	case s.frames > MaxFrames:
+		fail("frames", "want a sequence length of at most %d frames (found %d)", MaxFrames, opt.Frames)
 	}
 	switch s.rules {
 	case "", RulesAuto:
@@ -203,21 +232,54 @@ func (opt Options) resolve(gt, tracks []motfmt.Row) (settings, error) {
 // assignments). It returns an *InputError for rows that cannot be scored
 // (an id twice in one frame, a frame beyond Options.Frames, a box with a
 // negative or non-finite size, a class outside the MOTChallenge list under
-// the mot17 rules) and *OptionError values for invalid options.
+// the mot17 rules, more than MaxOverlaps overlapping pairs) and
+// *OptionError values for invalid options.
 func Evaluate(gt, tracks []motfmt.Row, opt Options) (Metrics, error) {
+	return EvaluateContext(context.Background(), gt, tracks, opt)
+}
+
+// EvaluateContext is Evaluate that gives up soon after ctx is done, with
+// an error that wraps ctx.Err(): what `tallyd score` calls so that a signal
+// stops it. It looks at ctx about every millisecond of work, and no step
+// between two looks takes more than a fraction of a second on inputs
+// within motfmt's limits.
+func EvaluateContext(ctx context.Context, gt, tracks []motfmt.Row, opt Options) (Metrics, error) {
 	s, err := opt.resolve(gt, tracks)
 	if err != nil {
 		return Metrics{}, fmt.Errorf("score options: %w", err)
 	}
-	seq, err := prepare(gt, tracks, s)
-	if err != nil {
-		return Metrics{}, err
+	seq, err := prepare(ctx, gt, tracks, s)
+	if err == nil {
+		var m Metrics
+		if m, err = score(ctx, seq, s.iou); err == nil {
+			m.Rules = s.rules
+			m.Frames = s.frames
+			m.Suppressed = seq.suppressed
+			return m, nil
+		}
 	}
-	m := score(seq, s.iou)
-	m.Rules = s.rules
-	m.Frames = s.frames
-	m.Suppressed = seq.suppressed
-	return m, nil
+	if cerr := ctx.Err(); cerr != nil {
+		return Metrics{}, fmt.Errorf("evaluation interrupted: %w", cerr)
+	}
+	return Metrics{}, err
+}
+
+// pollWork is how much work (pairs and frames) a loop does between two
+// looks at its context: about a millisecond.
+const pollWork = 1 << 16
+
+// poller lets a long loop notice that its context is done without paying
+// for a look on every pass. The zero value is ready.
+type poller struct{ work int }
+
+// check adds work units done since the last call and returns ctx.Err()
+// once ctx is done, looking at it only every pollWork units.
+func (p *poller) check(ctx context.Context, work int) error {
+	if p.work += work; p.work < pollWork {
+		return nil
+	}
+	p.work = 0
+	return ctx.Err()
 }
 
 // eps is the float64 machine epsilon; the official evaluator widens its

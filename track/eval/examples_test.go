@@ -1,6 +1,7 @@
 package eval
 
 import (
+	"context"
 	"fmt"
 	"math"
 	"testing"
@@ -41,7 +42,10 @@ func scoreSimilarities(t *testing.T, frames []simFrame, thr float64) (Metrics, *
 		b.addFrame(f.gt, f.tr, pairs)
 	}
 	seq := b.finish()
-	m := score(seq, thr)
+	m, err := score(context.Background(), seq, thr)
+	if err != nil {
+		t.Fatal(err)
+	}
 	m.Frames = len(frames)
 	return m, seq
 }
@@ -112,7 +116,10 @@ func TestExampleA1MOTAMOTP(t *testing.T) {
 	// Identity inputs: test_metrics.py::test_extract_counts (asserted) —
 	// frames in which each (GT, H) pair is allowed.
 	_, seq := scoreSimilarities(t, toSims(frames), 1e-9)
-	together := cooccurrence(seq, 1e-9)
+	together, err := cooccurrence(context.Background(), seq, 1e-9)
+	if err != nil {
+		t.Fatal(err)
+	}
 	got := map[[2]int64]int32{}
 	gtID := []int64{1, 2} // dense ids follow first appearance: GT 1, 2 and H 1, 2
 	trID := []int64{1, 2}

@@ -1,5 +1,13 @@
 package eval
 
+import (
+	"context"
+	"fmt"
+	"slices"
+
+	"tallyd/track"
+)
+
 // numAlphas is the number of localisation thresholds HOTA averages over.
 const numAlphas = 19
 
@@ -24,29 +32,35 @@ type alphaSums struct {
 // hota computes the HOTA sums at every α. First every (gt id, tracker id)
 // pair gets a global alignment score from soft per-frame overlaps; then in
 // each frame one assignment maximising alignment × IoU picks the matches,
-// and each α keeps those with IoU ≥ α.
-func hota(seq *sequence, m *matcher) [numAlphas]alphaSums {
+// and each α keeps those with IoU ≥ α. It stops with ctx's error.
+func hota(ctx context.Context, seq *sequence, m *track.Assigner) ([numAlphas]alphaSums, error) {
 	var res [numAlphas]alphaSums
 	if seq.trDets == 0 || seq.gtDets == 0 {
 		for a := range res {
 			res[a].fn, res[a].fp = seq.gtDets, seq.trDets
 		}
-		return res
+		return res, nil
 	}
+	var poll poller
 	gtCount := make([]float64, seq.numGT)
 	trCount := make([]float64, seq.numTr)
 	soft := make([]float64, len(seq.pairGT)) // per pair key
 	var rowSum, colSum []float64
 	for fi := range seq.frames {
 		f := &seq.frames[fi]
+		if err := poll.check(ctx, len(f.pairs)+1); err != nil {
+			return res, err
+		}
 		for _, g := range f.gt {
 			gtCount[g]++
 		}
 		for _, t := range f.tr {
 			trCount[t]++
 		}
-		rowSum = fill(grow(rowSum, len(f.gt)), 0)
-		colSum = fill(grow(colSum, len(f.tr)), 0)
+		rowSum = slices.Grow(rowSum[:0], len(f.gt))[:len(f.gt)]
+		colSum = slices.Grow(colSum[:0], len(f.tr))[:len(f.tr)]
+		clear(rowSum)
+		clear(colSum)
 		for _, p := range f.pairs {
 			rowSum[p.g] += p.sim
 			colSum[p.t] += p.sim
@@ -64,11 +78,14 @@ func hota(seq *sequence, m *matcher) [numAlphas]alphaSums {
 
 	matches := make([][numAlphas]int32, len(soft)) // per pair key and α: frames matched
 	var (
-		edges []edge
+		edges []track.Pair
 		rowTo []int32
 	)
 	for fi := range seq.frames {
 		f := &seq.frames[fi]
+		if err := poll.check(ctx, len(f.pairs)+1); err != nil {
+			return res, err
+		}
 		if len(f.gt) == 0 || len(f.tr) == 0 {
 			for a := range res {
 				res[a].fn += len(f.gt)
@@ -77,19 +94,20 @@ func hota(seq *sequence, m *matcher) [numAlphas]alphaSums {
 			continue
 		}
 		edges = edges[:0]
-		for k, p := range f.pairs {
+		for _, p := range f.pairs {
 			if w := align[p.key] * p.sim; w > 0 {
-				edges = append(edges, edge{r: p.g, c: p.t, p: int32(k), w: w})
+				edges = append(edges, track.Pair{Row: p.g, Col: p.t, Weight: w})
 			}
 		}
-		rowTo = grow(rowTo, len(f.gt))
-		m.match(len(f.gt), len(f.tr), edges, rowTo)
+		rowTo = slices.Grow(rowTo[:0], len(f.gt))[:len(f.gt)]
+		if err := m.AssignContext(ctx, len(f.gt), len(f.tr), edges, rowTo); err != nil {
+			return res, fmt.Errorf("HOTA matching: %w", err)
+		}
 		var n [numAlphas]int
-		for _, e := range edges {
-			if rowTo[e.r] != e.c {
+		for _, p := range f.pairs { // each (gt, tracker) pair once per frame
+			if rowTo[p.g] != p.t {
 				continue
 			}
-			p := f.pairs[e.p]
 			for a := 0; a < numAlphas && p.sim >= alphas[a]-eps; a++ {
 				n[a]++
 				res[a].iouSum += p.sim
@@ -114,5 +132,5 @@ func hota(seq *sequence, m *matcher) [numAlphas]alphaSums {
 			res[a].assPr += c * c / max(1, ct)
 		}
 	}
-	return res
+	return res, nil
 }

@@ -1,6 +1,11 @@
 package eval
 
-import "math"
+import (
+	"context"
+	"math"
+
+	"tallyd/track"
+)
 
 // Metrics is the score of one sequence, or of several combined. Ratios are
 // fractions (0.7228, not 72.28 %); every value is finite. JSON keys follow
@@ -198,17 +203,29 @@ func Combine(seqs ...Metrics) Metrics {
 	return a.Metrics()
 }
 
-// score computes every metric of a prepared sequence.
-func score(seq *sequence, thr float64) Metrics {
-	var m matcher
-	c := clearMOT(seq, thr, &m)
+// score computes every metric of a prepared sequence. It stops with ctx's
+// error.
+func score(ctx context.Context, seq *sequence, thr float64) (Metrics, error) {
+	var m track.Assigner
+	c, err := clearMOT(ctx, seq, thr, &m)
+	if err != nil {
+		return Metrics{}, err
+	}
+	id, err := identity(ctx, seq, thr, &m)
+	if err != nil {
+		return Metrics{}, err
+	}
+	alpha, err := hota(ctx, seq, &m)
+	if err != nil {
+		return Metrics{}, err
+	}
 	a := Accumulator{
 		seqs: 1, gt: seq.gtDets, pred: seq.trDets, gtIDs: seq.numGT, predIDs: seq.numTr,
 		tp: c.tp, fp: c.fp, fn: c.fn, idsw: c.idsw, frag: c.frag, mt: c.mt, pt: c.pt, ml: c.ml,
 		iouSum: c.iouSum,
-		id:     identity(seq, thr, &m),
-		alpha:  hota(seq, &m),
+		id:     id,
+		alpha:  alpha,
 		iou:    thr,
 	}
-	return a.Metrics()
+	return a.Metrics(), nil
 }

@@ -1,17 +1,20 @@
 package eval
 
 import (
+	"context"
 	"fmt"
 	"math"
 	"slices"
 
 	"tallyd/internal/motfmt"
+	"tallyd/track"
 )
 
-// sequence is one sequence ready for scoring: for every frame, the dense
-// ids of the scored ground-truth and tracker boxes and the similarity
-// (IoU) of every overlapping pair. Dense ids number the distinct input ids
-// 0, 1, 2, … in order of first appearance.
+// sequence is one sequence ready for scoring: for every frame that holds a
+// row, the dense ids of the scored ground-truth and tracker boxes and the
+// similarity (IoU) of every overlapping pair. Frames without rows are left
+// out: they change no metric. Dense ids number the distinct input ids 0, 1,
+// 2, … in order of first appearance.
 type sequence struct {
 	frames         []frame
 	numGT, numTr   int     // distinct ids scored
@@ -107,22 +110,38 @@ func (b *builder) finish() *sequence {
 	return &b.seq
 }
 
-// prepare checks the rows, applies the rules and computes the similarities.
-func prepare(gt, tracks []motfmt.Row, s settings) (*sequence, error) {
+// prepare checks the rows, applies the rules and computes the
+// similarities. It stops with ctx's error.
+func prepare(ctx context.Context, gt, tracks []motfmt.Row, s settings) (*sequence, error) {
 	if err := checkRows("truth", gt, s); err != nil {
 		return nil, err
 	}
 	if err := checkRows("tracks", tracks, s); err != nil {
 		return nil, err
 	}
-	gtBy, trBy := byFrame(gt, s.frames), byFrame(tracks, s.frames)
-	b := newBuilder(s.frames, len(gt), len(tracks))
+	gtBy, err := byFrame(ctx, gt)
+	if err != nil {
+		return nil, err
+	}
+	trBy, err := byFrame(ctx, tracks)
+	if err != nil {
+		return nil, err
+	}
+	b := newBuilder(len(gtBy.frames)+len(trBy.frames), len(gt), len(tracks))
 	var (
 		p            prepScratch
 		gtIDs, trIDs []int64
+		poll         poller
+		next         = frameMerge{a: gtBy, b: trBy}
 	)
-	for f := 1; f <= s.frames; f++ {
-		gi, ti := gtBy.rows(f), trBy.rows(f)
+	for {
+		f, gi, ti, ok := next.next()
+		if !ok {
+			break
+		}
+		if err := poll.check(ctx, 1+len(gi)+len(ti)); err != nil {
+			return nil, err
+		}
 		if err := p.checkUnique("truth", f, gt, gi); err != nil {
 			return nil, err
 		}
@@ -130,7 +149,7 @@ func prepare(gt, tracks []motfmt.Row, s settings) (*sequence, error) {
 			return nil, err
 		}
 		ng, nt := len(gi), len(ti)
-		p.gtBox, p.trBox = grow(p.gtBox, ng), grow(p.trBox, nt)
+		p.gtBox, p.trBox = slices.Grow(p.gtBox[:0], ng)[:ng], slices.Grow(p.trBox[:0], nt)[:nt]
 		for i, r := range gi {
 			p.gtBox[i] = boxOf(&gt[r])
 		}
@@ -139,21 +158,34 @@ func prepare(gt, tracks []motfmt.Row, s settings) (*sequence, error) {
 		}
 		p.overlaps = p.overlaps[:0]
 		for i := range p.gtBox {
+			if err := poll.check(ctx, len(p.trBox)); err != nil { // one frame may be huge
+				return nil, err
+			}
 			for j := range p.trBox {
 				if v := iou(&p.gtBox[i], &p.trBox[j]); v > 0 {
+					if len(b.pairs)+len(p.overlaps) >= s.maxOverlaps {
+						return nil, &InputError{Input: "tracks", Frame: f, ID: tracks[ti[j]].ID,
+							Msg: fmt.Sprintf("want at most %d pairs of overlapping truth and tracker boxes in a sequence (found %d with this box)",
+								s.maxOverlaps, s.maxOverlaps+1)}
+					}
 					p.overlaps = append(p.overlaps, pair{g: int32(i), t: int32(j), sim: v})
 				}
 			}
 		}
-		p.dropTr = fill(grow(p.dropTr, nt), false)
+		p.dropTr = slices.Grow(p.dropTr[:0], nt)[:nt]
+		clear(p.dropTr)
 		if s.byClass && ng > 0 && nt > 0 {
-			b.seq.suppressed += p.suppress(gt, gi, nt, s)
+			n, err := p.suppress(ctx, gt, gi, nt, s)
+			if err != nil {
+				return nil, fmt.Errorf("distractor matching: %w", err)
+			}
+			b.seq.suppressed += n
 		}
 
 		// Renumber the kept boxes and keep the pairs between them (the
 		// order by gt then tracker position is preserved).
 		gtIDs, trIDs = gtIDs[:0], trIDs[:0]
-		p.gPos, p.tPos = grow(p.gPos, ng), grow(p.tPos, nt)
+		p.gPos, p.tPos = slices.Grow(p.gPos[:0], ng)[:ng], slices.Grow(p.tPos[:0], nt)[:nt]
 		for i, r := range gi {
 			row := &gt[r]
 			p.gPos[i] = -1
@@ -191,23 +223,25 @@ type prepScratch struct {
 	dropTr         []bool
 	gPos, tPos     []int32 // per box of the frame: position among the kept ones, or -1
 	ids            []int64
-	edges          []edge
+	edges          []track.Pair
 	rowTo          []int32
-	m              matcher
+	m              track.Assigner
 }
 
 // suppress marks in p.dropTr the tracker boxes that the frame's best IoU
 // matching against every ground-truth box (any class, any flag) pairs with
 // a distractor, and returns how many it marked.
-func (p *prepScratch) suppress(gt []motfmt.Row, gi []int32, nt int, s settings) int {
+func (p *prepScratch) suppress(ctx context.Context, gt []motfmt.Row, gi []int32, nt int, s settings) (int, error) {
 	p.edges = p.edges[:0]
 	for _, o := range p.overlaps {
 		if o.sim >= s.suppressIoU-eps && o.sim > eps {
-			p.edges = append(p.edges, edge{r: o.g, c: o.t, w: o.sim})
+			p.edges = append(p.edges, track.Pair{Row: o.g, Col: o.t, Weight: o.sim})
 		}
 	}
-	p.rowTo = grow(p.rowTo, len(gi))
-	p.m.match(len(gi), nt, p.edges, p.rowTo)
+	p.rowTo = slices.Grow(p.rowTo[:0], len(gi))[:len(gi)]
+	if err := p.m.AssignContext(ctx, len(gi), nt, p.edges, p.rowTo); err != nil {
+		return 0, err
+	}
 	n := 0
 	for i, j := range p.rowTo {
 		if j >= 0 && slices.Contains(s.distractors, gt[gi[i]].Class) {
@@ -215,7 +249,7 @@ func (p *prepScratch) suppress(gt []motfmt.Row, gi []int32, nt int, s settings) 
 			n++
 		}
 	}
-	return n
+	return n, nil
 }
 
 // checkUnique reports an id found on more than one box of a frame.
@@ -265,29 +299,115 @@ func checkRows(input string, rows []motfmt.Row, s settings) error {
 
 func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
 
-// frameIndex lists the rows of each frame in input order.
+// frameIndex lists the rows of each frame that holds any, in input order
+// within a frame.
 type frameIndex struct {
-	start []int32 // rows of frame f are order[start[f-1]:start[f]]
-	order []int32
+	frames []int   // frame numbers holding rows, ascending
+	start  []int32 // rows of frames[k] are order[start[k]:start[k+1]]
+	order  []int32
 }
 
-// byFrame groups row indices by frame (counting sort; rows were checked to
-// lie within 1..frames).
-func byFrame(rows []motfmt.Row, frames int) frameIndex {
-	fi := frameIndex{start: make([]int32, frames+1), order: make([]int32, len(rows))}
+// byFrame groups row indices by frame (rows were checked to be at frame 1
+// or later): a counting sort when the frame numbers are not much larger
+// than the number of rows, a radix sort 16 bits at a time otherwise, so
+// that memory grows with the rows only. It stops with ctx's error.
+func byFrame(ctx context.Context, rows []motfmt.Row) (frameIndex, error) {
+	fi := frameIndex{order: make([]int32, len(rows))}
+	var poll poller
+	last := 0
 	for i := range rows {
-		fi.start[rows[i].Frame]++
+		last = max(last, rows[i].Frame)
 	}
-	for f := 1; f <= frames; f++ {
-		fi.start[f] += fi.start[f-1]
+	if last <= 4*len(rows)+1024 {
+		count := make([]int32, last+1) // per frame: its rows, then where they go
+		for i := range rows {
+			count[rows[i].Frame]++
+		}
+		var at int32
+		for f, n := range count {
+			if n > 0 {
+				fi.frames = append(fi.frames, f)
+				fi.start = append(fi.start, at)
+			}
+			count[f] = at
+			at += n
+		}
+		if err := poll.check(ctx, 2*len(rows)+len(count)); err != nil {
+			return fi, err
+		}
+		for i := range rows {
+			f := rows[i].Frame
+			fi.order[count[f]] = int32(i)
+			count[f]++
+		}
+	} else {
+		type key struct {
+			frame uint64
+			row   int32
+		}
+		a, b := make([]key, len(rows)), make([]key, len(rows))
+		for i := range rows {
+			a[i] = key{uint64(rows[i].Frame), int32(i)}
+		}
+		count := make([]int32, 1<<16)
+		for shift := 0; shift < 64 && uint64(last)>>shift > 0; shift += 16 {
+			if err := poll.check(ctx, 2*len(rows)); err != nil {
+				return fi, err
+			}
+			clear(count)
+			for _, k := range a {
+				count[k.frame>>shift&0xffff]++
+			}
+			var at int32
+			for d, n := range count {
+				count[d] = at
+				at += n
+			}
+			for _, k := range a { // keeps the order of equal digits: a stable sort
+				d := k.frame >> shift & 0xffff
+				b[count[d]] = k
+				count[d]++
+			}
+			a, b = b, a
+		}
+		for k, x := range a {
+			fi.order[k] = x.row
+			if f := int(x.frame); k == 0 || f != fi.frames[len(fi.frames)-1] {
+				fi.frames = append(fi.frames, f)
+				fi.start = append(fi.start, int32(k))
+			}
+		}
 	}
-	next := slices.Clone(fi.start)
-	for i := range rows {
-		f := rows[i].Frame - 1
-		fi.order[next[f]] = int32(i)
-		next[f]++
-	}
-	return fi
+	fi.start = append(fi.start, int32(len(fi.order)))
+	return fi, nil
 }
 
-func (fi frameIndex) rows(f int) []int32 { return fi.order[fi.start[f-1]:fi.start[f]] }
+// rows returns the rows of the k-th frame holding any.
+func (fi frameIndex) rows(k int) []int32 { return fi.order[fi.start[k]:fi.start[k+1]] }
+
+// frameMerge walks the frames holding rows of either of two inputs.
+type frameMerge struct {
+	a, b   frameIndex
+	ak, bk int // next frame of a and of b
+}
+
+// next returns the next frame holding a row of either input and the rows
+// of each in it; ok is false after the last.
+func (m *frameMerge) next() (f int, a, b []int32, ok bool) {
+	f = math.MaxInt
+	if m.ak < len(m.a.frames) {
+		f = m.a.frames[m.ak]
+	}
+	if m.bk < len(m.b.frames) {
+		f = min(f, m.b.frames[m.bk])
+	}
+	if m.ak < len(m.a.frames) && m.a.frames[m.ak] == f {
+		a, ok = m.a.rows(m.ak), true
+		m.ak++
+	}
+	if m.bk < len(m.b.frames) && m.b.frames[m.bk] == f {
+		b, ok = m.b.rows(m.bk), true
+		m.bk++
+	}
+	return f, a, b, ok
+}

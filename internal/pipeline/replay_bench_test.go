@@ -1,4 +1,4 @@
-package onnx_test
+package pipeline
 
 import (
 	"context"
@@ -11,7 +11,6 @@ import (
 	"tallyd/capture"
 	"tallyd/detect/onnx"
 	"tallyd/internal/config"
-	"tallyd/internal/pipeline"
 )
 
 // BenchmarkReplay replays configs/footage-people.yaml end to end at pace max
@@ -33,7 +32,7 @@ func benchReplay(b *testing.B, engine onnx.Engine) {
 	if err != nil {
 		b.Fatal(err)
 	}
-	oc := onnx.FromSite(cfg)
+	oc := onnxConfig(cfg)
 	oc.Engine = engine
 	if engine == onnx.EngineORT {
 		oc.Library = os.Getenv(onnx.ORTLibEnv)
@@ -49,7 +48,7 @@ func benchReplay(b *testing.B, engine onnx.Engine) {
 		if err != nil {
 			b.Fatal(err)
 		}
-		p, err := pipeline.Build(cfg, pipeline.Options{Pace: capture.PaceMax, Detector: det})
+		p, err := Build(cfg, Options{Pace: capture.PaceMax, Detector: det})
 		if err != nil {
 			b.Fatal(err)
 		}

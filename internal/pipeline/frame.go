@@ -1,0 +1,112 @@
+package pipeline
+
+import (
+	"context"
+	"fmt"
+	"time"
+
+	"tallyd/capture"
+	"tallyd/events"
+)
+
+// process is the per-frame path, start to end, for the jobs one detect worker
+// claimed (at most one per source):
+//
+//  1. a lost or ended source closes what it held open;
+//  2. a frame from a new connection, or of a new size, first ends the old
+//     connection's tracks and converts the rules for the new size;
+//  3. frames too old for max_age, and frames the motion gate finds still,
+//     are dropped and counted;
+//  4. the remaining frames go through the detector in one call;
+//  5. per frame: the source's tracker, its tracks file, its rules, and the
+//     events to every publisher; then the frame's counters.
+func (p *Pipeline) process(ctx context.Context, jobs []job) error {
+	var batch []*capture.Frame
+	var owners []*sourceRun
+	for _, j := range jobs {
+		sr := j.sr
+		switch j.kind {
+		case jobLost: // 1
+			p.closeLost(ctx, sr, sr.lostConn.Load())
+			continue
+		case jobEnd:
+			p.closeStays(ctx, sr, events.ReasonStreamEnd)
+			continue
+		}
+		f := j.frame
+		// 2. A loss report that a newer frame overtook: the old connection's
+		// tracks end first.
+		if sr.cursor.conn != 0 && f.Conn != sr.cursor.conn && sr.cursor.closedFor < sr.cursor.conn {
+			p.closeLost(ctx, sr, sr.cursor.conn)
+		}
+		sr.cursor.conn = f.Conn
+		if w, h := f.Mat.Cols(), f.Mat.Rows(); w != sr.stages.w || h != sr.stages.h {
+			if sr.stages.engine != nil {
+				p.closeStays(ctx, sr, events.ReasonSourceLost)
+				sr.resetTracker()
+			}
+			sr.setupRules(p, w, h)
+		}
+		if why := sr.admit(f); why != "" { // 3
+			sr.count.drop(why)
+			f.Close()
+			continue
+		}
+		batch = append(batch, f)
+		owners = append(owners, sr)
+	}
+	if len(batch) == 0 {
+		return nil
+	}
+	start := time.Now() // 4
+	dets, err := p.det.Detect(ctx, batch)
+	p.detectCalls.Add(1)
+	for _, f := range batch {
+		f.Close()
+	}
+	if err != nil {
+		return fmt.Errorf("detect: %w", err)
+	}
+	perFrame := int64(time.Since(start)) / int64(len(batch))
+	for i, f := range batch { // 5
+		sr := owners[i]
+		res := sr.stages.tracker.Update(f.PTS, dets[i])
+		if sr.tracks != nil {
+			if err := sr.tracks.write(int(f.Seq)+1, f.PTS, res); err != nil {
+				return fmt.Errorf("source %s: write tracks: %w", sr.id, err)
+			}
+		}
+		p.publish(ctx, sr, f.Captured, sr.stages.engine.Step(f.Seq, f.PTS, res))
+		sr.cursor.seq, sr.cursor.pts, sr.cursor.captured = f.Seq, f.PTS, f.Captured
+		sr.count.processed.Add(1)
+		sr.count.detectNanos.Add(perFrame)
+		sr.count.ages.add(time.Since(f.Captured))
+	}
+	return nil
+}
+
+// closeStays ends every zone stay open on a source.
+func (p *Pipeline) closeStays(ctx context.Context, sr *sourceRun, reason events.Reason) {
+	if sr.stages.engine == nil {
+		return // never delivered a frame
+	}
+	c := sr.cursor
+	p.publish(ctx, sr, c.captured, sr.stages.engine.CloseAll(c.seq, c.pts, reason))
+}
+
+// closeLost ends what a lost connection held open: zone stays (reason
+// source_lost), tracks, the detector's and the gate's memory of the scene.
+func (p *Pipeline) closeLost(ctx context.Context, sr *sourceRun, conn int64) {
+	if conn <= sr.cursor.closedFor {
+		return
+	}
+	sr.cursor.closedFor = conn
+	p.closeStays(ctx, sr, events.ReasonSourceLost)
+	sr.resetTracker()
+	if f, ok := p.det.(Forgetter); ok {
+		f.Forget(sr.id)
+	}
+	if sr.stages.gate != nil {
+		sr.stages.gate.Reset()
+	}
+}

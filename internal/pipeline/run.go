@@ -1,0 +1,105 @@
+package pipeline
+
+import (
+	"context"
+	"sync"
+	"time"
+
+	"tallyd/capture"
+)
+
+// Run processes until every source has ended or ctx is cancelled, then
+// drains what was already captured, closes open zone stays and flushes the
+// publishers. It returns the first processing error, or the publishers'
+// delivery errors.
+//
+// Shutdown order: capture stops first (ctx); processing, on its own context,
+// finishes the frames already captured and the end of every source; then the
+// publishers flush. ShutdownTimeout bounds the drain.
+func (p *Pipeline) Run(ctx context.Context) error {
+	procCtx, cancelProc := context.WithCancel(context.Background())
+	defer cancelProc()
+	s := newScheduler(p)
+	for _, sr := range p.sources {
+		sr.worker.Out.Notify(s.ready)
+		sr.worker.OnLost = func(l capture.Lost) {
+			sr.lostConn.Store(l.Conn)
+			s.poke()
+		}
+	}
+	var capWG, procWG sync.WaitGroup
+	errs := make(chan error, len(p.sources)+p.opts.workers())
+	for _, sr := range p.sources {
+		capWG.Add(1)
+		go func() {
+			defer capWG.Done()
+			if err := sr.worker.Run(ctx); err != nil {
+				p.log.Error("source failed", "source", sr.id, "err", err)
+				errs <- err
+			}
+			s.poke()
+		}()
+	}
+	for range p.opts.workers() {
+		procWG.Add(1)
+		go func() {
+			defer procWG.Done()
+			if err := s.work(procCtx); err != nil {
+				errs <- err
+				cancelProc()
+			}
+		}()
+	}
+	stopStatus := p.startStatus()
+	done := make(chan struct{})
+	go func() { capWG.Wait(); procWG.Wait(); close(done) }()
+	select {
+	case <-done:
+	case <-ctx.Done():
+		select {
+		case <-done:
+		case <-time.After(p.opts.ShutdownTimeout):
+			p.log.Error("shutdown deadline passed; stopping processing", "timeout", p.opts.ShutdownTimeout)
+			cancelProc()
+			<-done
+		}
+	}
+	stopStatus()
+	for _, sr := range p.sources {
+		if sr.worker.Stats().State == capture.StateStopped && !sr.info.Live {
+			p.interrupted.Store(true)
+		}
+	}
+	flushErr := p.drain()
+	close(errs)
+	for err := range errs {
+		return err
+	}
+	return flushErr
+}
+
+// startStatus logs one line per source periodically; it returns a stop func.
+func (p *Pipeline) startStatus() func() {
+	if p.opts.StatusEvery <= 0 {
+		return func() {}
+	}
+	stop := make(chan struct{})
+	var wg sync.WaitGroup
+	wg.Add(1)
+	go func() {
+		defer wg.Done()
+		t := time.NewTicker(p.opts.StatusEvery)
+		defer t.Stop()
+		for {
+			select {
+			case <-stop:
+				return
+			case <-t.C:
+				for _, s := range p.Status() {
+					p.log.Info("status", s.logAttrs()...)
+				}
+			}
+		}
+	}()
+	return func() { close(stop); wg.Wait() }
+}
