@@ -127,7 +127,9 @@ func Build(cfg *config.Config, opts Options) (_ *Pipeline, err error) {
 // folder, or a live stream or device that reconnects on its own.
 func (p *Pipeline) openSource(i int, sc config.Source) (*sourceRun, error) {
 	key := fmt.Sprintf("sources[%d].%s", i, sc.Kind())
+	kind := sc.Kind()
 	sr := &sourceRun{id: sc.ID, set: sourceSettings{
+		live:  kind == capture.KindURL || kind == capture.KindDevice,
 		start: p.opts.Start, maxAge: sc.MaxAge.Duration, gate: gateConfig(sc.Gate),
 		tracker: trackerSettings(p.cfg.Tracker),
 	}}
@@ -135,7 +137,7 @@ func (p *Pipeline) openSource(i int, sc config.Source) (*sourceRun, error) {
 		sr.set.start, _ = time.Parse(time.RFC3339, sc.StartTime) // validated
 	}
 	var rd capture.Reader
-	switch sc.Kind() {
+	switch kind {
 	case capture.KindScene:
 		s, err := scene.New(SceneConfig(*sc.Scene))
 		if err != nil {

@@ -50,11 +50,7 @@ func TestLiveSourceSurvivesOutage(t *testing.T) {
 		t.Fatal(err)
 	}
 	frames := testsrv.SceneFrames(sc, 90)
-	cases := []struct {
-		name     string
-		start    func(t *testing.T) liveServer
-		down, up func(liveServer)
-	}{
+	cases := []outageCase{
 		{"rtsp server stops and restarts",
 			func(t *testing.T) liveServer {
 				return testsrv.StartRTSP(t, testsrv.RTSPOptions{Frames: frames, FPS: 40, Path: "/walkway"})
@@ -68,11 +64,29 @@ func TestLiveSourceSurvivesOutage(t *testing.T) {
 			func(s liveServer) { s.(*testsrv.MJPEGServer).Stall(true) },
 			func(s liveServer) { s.(*testsrv.MJPEGServer).Stall(false) }},
 	}
-	for _, tc := range cases {
-		t.Run(tc.name, func(t *testing.T) {
-			goroutines := runtime.NumGoroutine()
-			srv := tc.start(t)
-			cfg := siteFile(t, fmt.Sprintf(`site: s
+	goroutines := runtime.NumGoroutine()
+	t.Run("cases", func(t *testing.T) { // returns when both parallel cases are done
+		for _, tc := range cases {
+			t.Run(tc.name, func(t *testing.T) {
+				t.Parallel() // each case runs its own servers; both take ~15 s of stream time
+				tc.run(t, sc)
+			})
+		}
+	})
+	testkit.WaitFor(t, 10*time.Second, "goroutines to settle", func() bool { return runtime.NumGoroutine() <= goroutines+2 })
+}
+
+// outageCase is one kind of camera outage.
+type outageCase struct {
+	name     string
+	start    func(t *testing.T) liveServer
+	down, up func(liveServer)
+}
+
+// run serves the scene from a camera server that goes down and comes back.
+func (tc outageCase) run(t *testing.T, sc *scene.Scene) {
+	srv := tc.start(t)
+	cfg := siteFile(t, fmt.Sprintf(`site: s
 sources:
   - id: cam
     url: %s
@@ -88,54 +102,51 @@ output:
     embedded: {port: 0}
 log: {level: warn}
 `, srv.URL()))
-			p, err := Build(cfg, Options{Pace: capture.PaceRealtime, Workers: 2})
-			if err != nil {
-				t.Fatal(err)
-			}
-			ctx, cancel := context.WithCancel(context.Background())
-			var wg sync.WaitGroup
-			wg.Add(1)
-			var runErr error
-			go func() { defer wg.Done(); runErr = p.Run(ctx) }()
-
-			// A reconnecting stream arrives in a burst (FFmpeg buffers about
-			// a second while it opens), and newest-wins drops most of that
-			// burst by design. So the outage is placed where nobody is near
-			// the line for the next few seconds of the scene: what is under
-			// test is that the source comes back and counting goes on, not
-			// seeing through dropped frames.
-			k := quietFrame(t, sc, 100, 30)
-			testkit.WaitFor(t, 30*time.Second, fmt.Sprintf("the server to send frame %d", k), func() bool { return srv.FramesSent() >= k })
-			tc.down(srv)
-			testkit.WaitFor(t, 10*time.Second, "the source to notice the outage", func() bool { return statusOf(p, "cam").State != capture.StateUp })
-			other := statusOf(p, "other").Processed
-			testkit.WaitFor(t, 5*time.Second, "the other source to go on", func() bool { return statusOf(p, "other").Processed >= other+20 })
-			t.Logf("outage: cam state %q (%s)", statusOf(p, "cam").State, statusOf(p, "cam").Err)
-			tc.up(srv)
-			testkit.WaitFor(t, 30*time.Second, "the camera to reconnect", func() bool { return statusOf(p, "cam").State == capture.StateUp })
-			testkit.WaitFor(t, 40*time.Second, "the whole scene to be served", func() bool { return srv.FramesSent() >= sc.Frames()+10 })
-			time.Sleep(500 * time.Millisecond)
-			cancel()
-			wg.Wait()
-			if runErr != nil {
-				t.Fatal(runErr)
-			}
-			s := p.Summary()
-			cam := statusOf(p, "cam")
-			lines, zones := RulesFor(cfg, "cam", 640, 360)
-			truth := SceneTruth(sc, lines, zones)
-			t.Logf("cam: read %d processed %d dropped(mailbox) %d; gate %+v, truth %+v", cam.Read, cam.Processed,
-				cam.Dropped.Mailbox, s.Rules["gate"], truth["gate"])
-			if got, want := s.Rules["gate"], truth["gate"]; got != want {
-				t.Errorf("counted %+v with an outage, truth %+v", got, want)
-			}
-			if err := p.Close(); err != nil {
-				t.Fatal(err)
-			}
-			srv.Close()
-			testkit.WaitFor(t, 10*time.Second, "goroutines to settle", func() bool { return runtime.NumGoroutine() <= goroutines+2 })
-		})
+	p, err := Build(cfg, Options{Pace: capture.PaceRealtime, Workers: 2})
+	if err != nil {
+		t.Fatal(err)
 	}
+	ctx, cancel := context.WithCancel(context.Background())
+	var wg sync.WaitGroup
+	wg.Add(1)
+	var runErr error
+	go func() { defer wg.Done(); runErr = p.Run(ctx) }()
+
+	// A reconnecting stream arrives in a burst (FFmpeg buffers about
+	// a second while it opens), and newest-wins drops most of that
+	// burst by design. So the outage is placed where nobody is near
+	// the line for the next few seconds of the scene: what is under
+	// test is that the source comes back and counting goes on, not
+	// seeing through dropped frames.
+	k := quietFrame(t, sc, 100, 30)
+	testkit.WaitFor(t, 30*time.Second, fmt.Sprintf("the server to send frame %d", k), func() bool { return srv.FramesSent() >= k })
+	tc.down(srv)
+	testkit.WaitFor(t, 10*time.Second, "the source to notice the outage", func() bool { return statusOf(p, "cam").State != capture.StateUp })
+	other := statusOf(p, "other").Processed
+	testkit.WaitFor(t, 5*time.Second, "the other source to go on", func() bool { return statusOf(p, "other").Processed >= other+20 })
+	t.Logf("outage: cam state %q (%s)", statusOf(p, "cam").State, statusOf(p, "cam").Err)
+	tc.up(srv)
+	testkit.WaitFor(t, 30*time.Second, "the camera to reconnect", func() bool { return statusOf(p, "cam").State == capture.StateUp })
+	testkit.WaitFor(t, 40*time.Second, "the whole scene to be served", func() bool { return srv.FramesSent() >= sc.Frames()+10 })
+	time.Sleep(500 * time.Millisecond)
+	cancel()
+	wg.Wait()
+	if runErr != nil {
+		t.Fatal(runErr)
+	}
+	s := p.Summary()
+	cam := statusOf(p, "cam")
+	lines, zones := RulesFor(cfg, "cam", 640, 360)
+	truth := SceneTruth(sc, lines, zones)
+	t.Logf("cam: read %d processed %d dropped(mailbox) %d; gate %+v, truth %+v", cam.Read, cam.Processed,
+		cam.Dropped.Mailbox, s.Rules["gate"], truth["gate"])
+	if got, want := s.Rules["gate"], truth["gate"]; got != want {
+		t.Errorf("counted %+v with an outage, truth %+v", got, want)
+	}
+	if err := p.Close(); err != nil {
+		t.Fatal(err)
+	}
+	srv.Close()
 }
 
 // TestUnreachableSourceDoesNotStopOthers: a camera that cannot be reached at

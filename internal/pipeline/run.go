@@ -66,7 +66,7 @@ func (p *Pipeline) Run(ctx context.Context) error {
 	}
 	stopStatus()
 	for _, sr := range p.sources {
-		if sr.worker.Stats().State == capture.StateStopped && !sr.info.Live {
+		if sr.worker.Stats().State == capture.StateStopped && !sr.set.live {
 			p.interrupted.Store(true)
 		}
 	}

@@ -88,6 +88,7 @@ func TestMotionGating(t *testing.T) {
 	}
 	for _, tc := range []struct{ where, duration string }{{"rules", "600s"}, {"anywhere", "600s"}} {
 		t.Run(tc.where, func(t *testing.T) {
+			t.Parallel()
 			cfg := siteFile(t, "site: s\nsources:\n  - id: walkway\n    gate: {where: "+tc.where+"}\n"+
 				"    scene: {seed: 3, duration: "+tc.duration+", crossings: 3, visitors: 0}\n"+sceneRules+
 				"output:\n  nats:\n    embedded: {port: 0}\n")

@@ -34,6 +34,7 @@ type sourceRun struct {
 
 // sourceSettings are a source's settings from the site file, in stage form.
 type sourceSettings struct {
+	live    bool               // a stream or device: it has no end to reach
 	start   time.Time          // wall time of frame 0, for event times
 	maxAge  time.Duration      // frames older than this when their turn comes are dropped (0: never)
 	gate    *motion.GateConfig // nil: every frame is detected
