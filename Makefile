@@ -20,11 +20,11 @@ demo: build
 	./$(BIN) replay -c configs/demo.yaml
 
 # Pure-Go packages run once, with the race detector; packages with OpenCV or
-# ONNX Runtime below them run once, without it (scripts/pkgs.sh sorts them).
-# Generated-scene counting runs one seed here; `make bench` runs them all.
+# ONNX Runtime below them run once, without it (scripts/pkgs.sh sorts them;
+# scripts/test.sh runs both at once). Generated-scene counting runs one seed
+# here; `make bench` runs them all.
 test: setup lint
-	$(GO) test -race $$(bash scripts/pkgs.sh pure)
-	$(GO) test -tags $(TAGS) -timeout 20m $$(bash scripts/pkgs.sh cgo)
+	@GO=$(GO) TAGS=$(TAGS) bash scripts/test.sh
 
 lint: setup
 	$(GO) vet -tags $(TAGS) ./...
