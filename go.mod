@@ -3,9 +3,12 @@ module tallyd
 go 1.26.8
 
 require (
+	github.com/nats-io/jwt/v2 v2.8.2
 	github.com/nats-io/nats-server/v2 v2.15.2
 	github.com/nats-io/nats.go v1.55.0
+	github.com/nats-io/nkeys v0.4.16
 	github.com/yalue/onnxruntime_go v1.27.0
+	go.etcd.io/bbolt v1.5.0
 	gocv.io/x/gocv v0.31.0
 	gopkg.in/yaml.v3 v3.0.1
 )
@@ -15,8 +18,6 @@ require (
 	github.com/google/go-tpm v0.9.8 // indirect
 	github.com/klauspost/compress v1.20.3 // indirect
 	github.com/minio/highwayhash v1.0.4 // indirect
-	github.com/nats-io/jwt/v2 v2.8.2 // indirect
-	github.com/nats-io/nkeys v0.4.16 // indirect
 	github.com/nats-io/nuid v1.0.1 // indirect
 	golang.org/x/crypto v0.58.0 // indirect
 	golang.org/x/sys v0.49.0 // indirect

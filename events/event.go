@@ -29,15 +29,19 @@ const (
 	KindEnter Kind = "enter" // track came inside a zone
 	KindExit  Kind = "exit"  // track left a zone, or its stay was closed
 	KindDwell Kind = "dwell" // track stayed inside a zone for the rule's threshold
+	// KindTotals is a rule's counts over one interval (see IntervalConfig).
+	KindTotals Kind = "totals"
 )
 
 // Event types (the CloudEvents "type" attribute).
 const (
-	TypeLineIn    = "tallyd.line.in"
-	TypeLineOut   = "tallyd.line.out"
-	TypeZoneEnter = "tallyd.zone.enter"
-	TypeZoneExit  = "tallyd.zone.exit"
-	TypeZoneDwell = "tallyd.zone.dwell"
+	TypeLineIn     = "tallyd.line.in"
+	TypeLineOut    = "tallyd.line.out"
+	TypeZoneEnter  = "tallyd.zone.enter"
+	TypeZoneExit   = "tallyd.zone.exit"
+	TypeZoneDwell  = "tallyd.zone.dwell"
+	TypeLineTotals = "tallyd.line.totals"
+	TypeZoneTotals = "tallyd.zone.totals"
 )
 
 // Reason says why a zone stay was closed by something other than the track
@@ -51,13 +55,19 @@ const (
 	ReasonSourceLost Reason = "source_lost" // the source went away
 )
 
-// typeOfKind maps each kind to its CloudEvents type.
+// typeOfKind maps each kind of a single event to its CloudEvents type.
 var typeOfKind = map[Kind]string{
 	KindIn:    TypeLineIn,
 	KindOut:   TypeLineOut,
 	KindEnter: TypeZoneEnter,
 	KindExit:  TypeZoneExit,
 	KindDwell: TypeZoneDwell,
+}
+
+// kindOfType maps each CloudEvents type to the kind its data carries.
+var kindOfType = map[string]Kind{
+	TypeLineIn: KindIn, TypeLineOut: KindOut, TypeZoneEnter: KindEnter, TypeZoneExit: KindExit,
+	TypeZoneDwell: KindDwell, TypeLineTotals: KindTotals, TypeZoneTotals: KindTotals,
 }
 
 // Event is one counting event in CloudEvents 1.0 structured-mode JSON.
@@ -74,22 +84,24 @@ type Event struct {
 
 // Data is the payload of an Event.
 type Data struct {
-	Site       string     `json:"site"`
-	Source     string     `json:"source"`
-	Rule       string     `json:"rule"`
-	Kind       Kind       `json:"kind"` // in|out|enter|exit|dwell
-	TrackID    int64      `json:"track_id"`
-	Class      string     `json:"class"`
-	SourceTime float64    `json:"source_time_s"` // seconds since stream start
-	Frame      int64      `json:"frame"`
-	Box        [4]float64 `json:"box"`                   // x1,y1,x2,y2 in source pixels
-	DwellS     *float64   `json:"dwell_s,omitempty"`     // exit and dwell: time inside so far
-	Occupancy  *int       `json:"occupancy,omitempty"`   // enter and exit: tracks inside after the frame
-	Reason     Reason     `json:"reason,omitempty"`      // exit: why the stay was closed, if not by leaving
-	ThresholdS *float64   `json:"threshold_s,omitempty"` // dwell: the rule's threshold
+	Site       string      `json:"site"`
+	Source     string      `json:"source"`
+	Rule       string      `json:"rule"`
+	Kind       Kind        `json:"kind"`                  // in|out|enter|exit|dwell
+	TrackID    int64       `json:"track_id,omitempty"`    // not in totals
+	Class      string      `json:"class,omitempty"`       // not in totals
+	SourceTime float64     `json:"source_time_s"`         // seconds since stream start
+	Frame      int64       `json:"frame"`                 // the frame that caused it (totals: the first frame past the interval)
+	Box        *[4]float64 `json:"box,omitempty"`         // x1,y1,x2,y2 in source pixels; not in totals
+	DwellS     *float64    `json:"dwell_s,omitempty"`     // exit and dwell: time inside so far
+	Occupancy  *int        `json:"occupancy,omitempty"`   // enter and exit: tracks inside after the frame
+	Reason     Reason      `json:"reason,omitempty"`      // exit: why the stay was closed, if not by leaving
+	ThresholdS *float64    `json:"threshold_s,omitempty"` // dwell: the rule's threshold
 	// FrameAgeMS is how old the frame behind the event was when the event was
 	// published (capture to publish), in milliseconds. Not part of the id.
 	FrameAgeMS *float64 `json:"frame_age_ms,omitempty"`
+	// Interval is set on totals events only.
+	Interval *Interval `json:"interval,omitempty"`
 }
 
 // EventSource is the CloudEvents source attribute for a site and a source.
@@ -97,10 +109,16 @@ func EventSource(site, source string) string { return "/tallyd/" + site + "/" + 
 
 // EventID is the stable id of an event: the hex of a SHA-256 over its
 // identifying fields, cut to 128 bits. The same input always gives the same
-// id, so a replayed stream can be de-duplicated downstream.
-func EventID(site, source, rule string, kind Kind, trackID, frame int64) string {
+// id, so a replayed stream can be de-duplicated downstream. run tells runs
+// of a live source apart (their frame numbers start again at 0); it is ""
+// for recorded sources, whose re-runs are the same events.
+func EventID(site, source, rule string, kind Kind, trackID, frame int64, run string) string {
 	h := sha256.New()
-	for _, s := range []string{site, source, rule, string(kind)} {
+	parts := []string{site, source, rule, string(kind)}
+	if run != "" {
+		parts = append(parts, run)
+	}
+	for _, s := range parts {
 		var n [8]byte
 		binary.BigEndian.PutUint64(n[:], uint64(len(s)))
 		h.Write(n[:])
@@ -188,12 +206,7 @@ func Parse(b []byte) (Event, error) {
 			return Event{}, &AttrError{"time", fmt.Sprintf("not RFC 3339: %q", ts)}
 		}
 	}
-	var wantKind Kind
-	for k, t := range typeOfKind {
-		if t == ev.Type {
-			wantKind = k
-		}
-	}
+	wantKind := kindOfType[ev.Type]
 	if wantKind == "" {
 		return Event{}, &AttrError{"type", fmt.Sprintf("unknown type %q", ev.Type)}
 	}

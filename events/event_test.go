@@ -25,7 +25,7 @@ func TestEventJSONShape(t *testing.T) {
 		Subject: "yard", Time: time.Date(2025, 3, 1, 8, 0, 1, 5e8, time.UTC), DataContentType: ContentType,
 		Data: Data{
 			Site: "depot", Source: "gate-1", Rule: "yard", Kind: KindExit, TrackID: 7, Class: "person",
-			SourceTime: 1.5, Frame: 15, Box: [4]float64{1, 2, 3, 4}, DwellS: &dwell, Occupancy: &occ, Reason: ReasonTrackEnded,
+			SourceTime: 1.5, Frame: 15, Box: &[4]float64{1, 2, 3, 4}, DwellS: &dwell, Occupancy: &occ, Reason: ReasonTrackEnded,
 		},
 	}
 	b, err := json.Marshal(ev)
@@ -42,7 +42,7 @@ func TestEventJSONShape(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if *back.Data.DwellS != 1.2 || *back.Data.Occupancy != 0 || !back.Time.Equal(ev.Time) || back.Data.Box != ev.Data.Box {
+	if *back.Data.DwellS != 1.2 || *back.Data.Occupancy != 0 || !back.Time.Equal(ev.Time) || *back.Data.Box != *ev.Data.Box {
 		t.Errorf("round trip: %+v", back)
 	}
 }
@@ -59,21 +59,34 @@ func TestEventOptionalFieldsOmitted(t *testing.T) {
 	}
 }
 
+func TestEventIDRun(t *testing.T) {
+	// A recorded source's ids do not depend on the run; a live source's do,
+	// so that ids never repeat across restarts of the daemon.
+	rec := EventID("depot", "gate-1", "yard", "exit", 7, 15, "")
+	if rec != EventID("depot", "gate-1", "yard", "exit", 7, 15, "") {
+		t.Fatal("recorded ids differ between runs")
+	}
+	a, b := EventID("depot", "gate-1", "yard", "exit", 7, 15, "run-a"), EventID("depot", "gate-1", "yard", "exit", 7, 15, "run-b")
+	if a == b || a == rec {
+		t.Errorf("live ids of two runs: %s %s (recorded %s)", a, b, rec)
+	}
+}
+
 func TestEventID(t *testing.T) {
-	a := EventID("depot", "gate-1", "yard", "exit", 7, 15)
+	a := EventID("depot", "gate-1", "yard", "exit", 7, 15, "")
 	if len(a) != 32 || strings.Trim(a, "0123456789abcdef") != "" {
 		t.Errorf("id %q is not 32 hex digits", a)
 	}
-	if a != EventID("depot", "gate-1", "yard", "exit", 7, 15) {
+	if a != EventID("depot", "gate-1", "yard", "exit", 7, 15, "") {
 		t.Error("same input, different id")
 	}
 	// Length-prefixed fields: moving a character between fields changes it.
 	others := []string{
-		EventID("depot", "gate-1", "yard", "exit", 7, 16),
-		EventID("depot", "gate-1", "yard", "exit", 8, 15),
-		EventID("depot", "gate-1", "yard", "enter", 7, 15),
-		EventID("depot", "gate-1", "yar", "dexit", 7, 15),
-		EventID("depot", "gate-", "1yard", "exit", 7, 15),
+		EventID("depot", "gate-1", "yard", "exit", 7, 16, ""),
+		EventID("depot", "gate-1", "yard", "exit", 8, 15, ""),
+		EventID("depot", "gate-1", "yard", "enter", 7, 15, ""),
+		EventID("depot", "gate-1", "yar", "dexit", 7, 15, ""),
+		EventID("depot", "gate-", "1yard", "exit", 7, 15, ""),
 	}
 	for i, o := range others {
 		if o == a {

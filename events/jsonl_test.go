@@ -6,7 +6,9 @@ import (
 	"errors"
 	"fmt"
 	"os"
+	"os/exec"
 	"path/filepath"
+	"strings"
 	"sync"
 	"testing"
 )
@@ -114,4 +116,67 @@ func countLines(b []byte) int {
 		}
 	}
 	return n
+}
+
+// TestJSONLWholeLinesOnFullDisk: on a file system that fills up, every line
+// in the file is whole — the one that did not fit is cut off again — and
+// the error says what happened. Needs root to mount a small tmpfs; skipped
+// otherwise.
+func TestJSONLWholeLinesOnFullDisk(t *testing.T) {
+	dir := t.TempDir()
+	if err := exec.Command("mount", "-t", "tmpfs", "-o", "size=16k", "tmpfs", dir).Run(); err != nil {
+		t.Skipf("cannot mount a small tmpfs here (%v); needs root", err)
+	}
+	defer exec.Command("umount", dir).Run()
+	j, err := NewJSONLFile(filepath.Join(dir, "events.jsonl"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	line := []byte(`{"pad":"` + strings.Repeat("x", 1000) + `"}`)
+	var werr error
+	written := 0
+	for i := 0; i < 100 && werr == nil; i++ {
+		if werr = j.WriteLine(line); werr == nil {
+			written++
+		}
+	}
+	if werr == nil || !strings.Contains(werr.Error(), "no space left on device") {
+		t.Fatalf("after %d lines: err %v, want no space left", written, werr)
+	}
+	_ = j.Close()
+	b, err := os.ReadFile(filepath.Join(dir, "events.jsonl"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(b) != written*(len(line)+1) || (len(b) > 0 && b[len(b)-1] != '\n') {
+		t.Errorf("file has %d bytes for %d whole lines of %d: a torn line is left", len(b), written, len(line)+1)
+	}
+}
+
+// TestJSONLReopen: after the file is moved away (log rotation), Reopen
+// sends new lines to a new file at the same path; nothing is lost.
+func TestJSONLReopen(t *testing.T) {
+	dir := t.TempDir()
+	path := filepath.Join(dir, "events.jsonl")
+	j, err := NewJSONLFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer j.Close()
+	must := func(err error) {
+		t.Helper()
+		if err != nil {
+			t.Fatal(err)
+		}
+	}
+	must(j.WriteLine([]byte(`{"n":1}`)))
+	must(os.Rename(path, path+".1"))
+	must(j.WriteLine([]byte(`{"n":2}`))) // still the old file
+	must(j.Reopen())
+	must(j.WriteLine([]byte(`{"n":3}`)))
+	old, _ := os.ReadFile(path + ".1")
+	cur, _ := os.ReadFile(path)
+	if string(old) != "{\"n\":1}\n{\"n\":2}\n" || string(cur) != "{\"n\":3}\n" {
+		t.Errorf("rotated %q, new %q", old, cur)
+	}
 }

@@ -2,6 +2,7 @@ package events
 
 import (
 	"fmt"
+	"reflect"
 	"strings"
 	"testing"
 	"time"
@@ -170,7 +171,7 @@ func TestLineEventFields(t *testing.T) {
 	ev := s.events[0]
 	want := Event{
 		SpecVersion:     "1.0",
-		ID:              EventID("depot", "gate-1", "gate", "in", 4, 1),
+		ID:              EventID("depot", "gate-1", "gate", "in", 4, 1, ""),
 		Source:          "/tallyd/depot/gate-1",
 		Type:            "tallyd.line.in",
 		Subject:         "gate",
@@ -178,10 +179,10 @@ func TestLineEventFields(t *testing.T) {
 		DataContentType: "application/json",
 		Data: Data{
 			Site: "depot", Source: "gate-1", Rule: "gate", Kind: "in", TrackID: 4, Class: "person",
-			SourceTime: 0.1, Frame: 1, Box: [4]float64{45, 130, 55, 150},
+			SourceTime: 0.1, Frame: 1, Box: &[4]float64{45, 130, 55, 150},
 		},
 	}
-	if fmt.Sprintf("%+v", ev) != fmt.Sprintf("%+v", want) {
+	if !reflect.DeepEqual(ev, want) {
 		t.Errorf("event\n%+v\nwant\n%+v", ev, want)
 	}
 	if got := ev.NATSSubject("tallyd.events"); got != "tallyd.events.depot.gate-1.gate.in" {

@@ -58,15 +58,19 @@ func (a Anchor) Point(b detect.Box) Point {
 type Meta struct {
 	Site, Source string
 	Start        time.Time // event time = Start + source timestamp
+	// Run identifies this run of a live source in event ids (see EventID);
+	// "" for recorded sources.
+	Run string
 }
 
 // Engine applies the line and zone rules of one source to the tracker's
 // output, frame after frame. It is owned by one goroutine (the source's
 // worker) and is not safe for concurrent use.
 type Engine struct {
-	meta  Meta
-	lines []*lineState
-	zones []*zoneState
+	meta      Meta
+	lines     []*lineState
+	zones     []*zoneState
+	intervals *intervals // nil: no interval totals
 }
 
 // NewEngine builds the engine for one source. Rules are copied; their order
@@ -86,15 +90,24 @@ func NewEngine(meta Meta, lines []LineRule, zones []ZoneRule) *Engine {
 // Step feeds the tracker result of one frame and returns the events it
 // caused, ordered by rule (lines in configuration order, then zones), then
 // by track ID. Unconfirmed tracks are ignored.
+// With intervals, the totals of every interval that ended before this frame
+// come first.
 func (e *Engine) Step(frame int64, ts time.Duration, res track.Result) []Event {
 	active := byID(res.Active, true)
 	ended := byID(res.Ended, false)
 	var out []Event
+	if e.intervals != nil {
+		out = e.intervals.roll(e, frame, ts, out)
+	}
+	first := len(out)
 	for _, l := range e.lines {
 		out = l.step(e, frame, ts, active, ended, out)
 	}
 	for _, z := range e.zones {
 		out = z.step(e, frame, ts, active, ended, out)
+	}
+	if e.intervals != nil {
+		e.intervals.count(e, out[first:])
 	}
 	return out
 }
@@ -110,6 +123,9 @@ func (e *Engine) CloseAll(frame int64, ts time.Duration, reason Reason) []Event 
 	}
 	for _, z := range e.zones {
 		out = z.closeAll(e, frame, ts, reason, out)
+	}
+	if e.intervals != nil {
+		e.intervals.count(e, out)
 	}
 	return out
 }
@@ -131,7 +147,7 @@ func (e *Engine) event(rule string, kind Kind, tr track.Track, frame int64, ts t
 	b := tr.Box
 	return Event{
 		SpecVersion:     SpecVersion,
-		ID:              EventID(e.meta.Site, e.meta.Source, rule, kind, tr.ID, frame),
+		ID:              EventID(e.meta.Site, e.meta.Source, rule, kind, tr.ID, frame, e.meta.Run),
 		Source:          EventSource(e.meta.Site, e.meta.Source),
 		Type:            typeOfKind[kind],
 		Subject:         rule,
@@ -146,7 +162,7 @@ func (e *Engine) event(rule string, kind Kind, tr track.Track, frame int64, ts t
 			Class:      tr.Class,
 			SourceTime: *seconds(ts),
 			Frame:      frame,
-			Box:        [4]float64{round1(b.X1), round1(b.Y1), round1(b.X2), round1(b.Y2)},
+			Box:        &[4]float64{round1(b.X1), round1(b.Y1), round1(b.X2), round1(b.Y2)},
 		},
 	}
 }

@@ -45,6 +45,26 @@ report=out/bench.txt
 echo "written to $report"
 
 # ---------------------------------------------------------------------------
+# Delivery: the outbox, JetStream acks, the whole way out (README "Delivery").
+{
+  echo
+  echo "## Delivery: outbox (bbolt), JetStream publish with acks, embedded server on loopback"
+  echo
+  {
+    go test -run '^$' -bench 'AppendGrouped|AppendOne|ReadDelete' -benchtime 3s ./events/outbox/
+    go test -tags matprofile -run '^$' -bench 'DeliveryPath' -benchtime 100000x ./internal/pipeline/
+    # 30,000 events = a 5-minute outage at 100 events/s, drained from the outbox.
+    go test -run '^$' -bench 'Deliver/(mem|outbox)$' -benchtime 30000x ./events/bus/
+    go test -run '^$' -bench 'Deliver/paced100' -benchtime 300x ./events/bus/
+  } 2>&1 | awk '/^Benchmark/ {printf "%-44s %s\n", $1, substr($0, index($0,$2))} /^(ok|FAIL)/ {print "  " $0}'
+  echo
+  echo "AppendGrouped: records/s into the outbox with grouped commits; AppendOne: one commit each."
+  echo "DeliveryPath: events/s sustained from the rules' hand-off to the JetStream ack (goal >= 20,000)."
+  echo "Deliver/outbox at 30000x: the outbox's drain rate after a 5-minute outage at 100 events/s."
+  echo "Deliver/paced100: publish -> ack latency at 100 events/s."
+} | tee -a "$report"
+
+# ---------------------------------------------------------------------------
 # ONNX detectors (detect/onnx): inference alone per engine, pre/post-processing,
 # end-to-end replay and per-stage time, appended to the same report.
 echo

@@ -6,6 +6,7 @@
 //	tallyd check -c site.yaml      dry run: check the file, open every source
 //	tallyd synth -c site.yaml ...  write a generated scene as video + ground truth
 //	tallyd listen                  print events from NATS
+//	tallyd totals -c site.yaml     the live totals and occupancy
 //	tallyd track ...               the tracker alone over a detections file
 //	tallyd score ...               tracking metrics against ground truth
 package main
@@ -45,6 +46,7 @@ var commands = []command{
 	{"check", "check a site file and open every source without starting anything", cmdCheck},
 	{"synth", "write a generated scene as a video file with its ground truth", cmdSynth},
 	{"listen", "subscribe to tallyd events on NATS and print them", cmdListen},
+	{"totals", "print the live totals and occupancy of a site", cmdTotals},
 	{"track", "run the tracker alone over a detections file (MOTChallenge text format)", cmdTrack},
 	{"score", "score tracks against ground truth: CLEAR MOT, IDF1, HOTA", cmdScore},
 }

@@ -296,7 +296,7 @@ func TestReplayFootage(t *testing.T) {
 // TestListenSeesEveryEvent: `tallyd listen` on a separate NATS server prints
 // exactly the events a replay publishes there, one JSON line each.
 func TestListenSeesEveryEvent(t *testing.T) {
-	srv, err := bus.StartEmbedded("127.0.0.1", 0, nil)
+	srv, err := bus.StartEmbedded(bus.EmbeddedOptions{}, nil) // plain subjects: what a plain listener reads
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -321,7 +321,7 @@ log: {level: warn}
 	if code != 0 {
 		t.Fatalf("replay: %s", errOut)
 	}
-	want := lastJSON(t, out).EventsPublished
+	want := lastJSON(t, out).Events.Produced
 	if want == 0 {
 		t.Fatal("the scene gave no events")
 	}
@@ -330,15 +330,16 @@ log: {level: warn}
 		code     int
 	}
 	done := make(chan result, 1)
+	subsBefore := srv.Subscriptions() // the server's own
 	go func() {
 		var out, errb bytes.Buffer
 		code := realMain(context.Background(), []string{"listen", "--url", srv.URL(), "--site", "ferry-terminal",
 			"--rule", "gate", "--timeout", "60s", "--count", fmt.Sprint(want)}, &out, &errb)
 		done <- result{out.String(), errb.String(), code}
 	}()
-	testkit.WaitFor(t, 10*time.Second, "listen to subscribe", func() bool { return srv.Subscriptions() > 0 })
+	testkit.WaitFor(t, 10*time.Second, "listen to subscribe", func() bool { return srv.Subscriptions() > subsBefore })
 	out, errOut, code = cli(t, "replay", "-c", site, "--summary", "json")
-	if code != 0 || lastJSON(t, out).EventsPublished != want {
+	if code != 0 || lastJSON(t, out).Events.Produced != want {
 		t.Fatalf("second replay: exit %d, %s", code, errOut)
 	}
 	r := <-done // listen exits by itself after --count events (or its 60 s timeout)

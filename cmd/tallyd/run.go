@@ -5,13 +5,17 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
+	"log/slog"
 	"math"
+	"os"
+	"os/signal"
 	"strings"
 	"syscall"
 	"time"
 
 	"tallyd/capture"
 	"tallyd/events"
+	"tallyd/events/bus"
 	"tallyd/internal/pipeline"
 )
 
@@ -32,23 +36,51 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 		return err
 	}
 	defer p.Close()
-	log.Info("running", "site", cfg.Site, "sources", len(cfg.Sources), "nats", p.NATSURL())
+	log.Info("running", "site", cfg.Site, "sources", len(cfg.Sources), "nats", bus.RedactURL(p.NATSURL()))
+	stopReopen := reopenOnSignal(p, log)
+	defer stopReopen()
 	start := time.Now()
 	runErr := p.Run(ctx)
 	s := p.Summary()
 	log.Info("stopped", "frames_read", s.FramesRead, "frames_processed", s.FramesProcessed,
-		"frames_dropped", s.FramesDropped, "events_published", s.EventsPublished, "events_failed", s.EventsFailed)
+		"frames_dropped", s.FramesDropped, "events_produced", s.Events.Produced, "events_acked", s.Events.Acked,
+		"events_pending", s.Events.Pending, "events_dropped", s.Events.Dropped)
 	printTable(stdout, s, time.Since(start))
-	// A daemon stopped by a signal is a normal stop, not an incomplete run.
+	// A daemon stopped by a signal is a normal stop, not an incomplete run;
+	// events still pending are kept in the outbox for the next start.
 	return outcome(runErr, s, false)
 }
 
+// reopenOnSignal reopens the JSON-lines file on SIGHUP or SIGUSR1 (log
+// rotation), until the returned func is called.
+func reopenOnSignal(p *pipeline.Pipeline, log *slog.Logger) func() {
+	ch := make(chan os.Signal, 1)
+	signal.Notify(ch, syscall.SIGHUP, syscall.SIGUSR1)
+	done := make(chan struct{})
+	go func() {
+		for {
+			select {
+			case <-done:
+				return
+			case sig := <-ch:
+				if err := p.ReopenFiles(); err != nil {
+					log.Error("reopening the events file failed", "signal", sig, "err", err)
+				} else {
+					log.Info("events file reopened", "signal", sig)
+				}
+			}
+		}
+	}()
+	return func() { signal.Stop(ch); close(done) }
+}
+
 func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	fs := newFlags("replay", "replay -c FILE [--pace max|realtime] [--summary table|json] [--tracks OUT.txt]", stdout)
+	fs := newFlags("replay", "replay -c FILE [--pace max|realtime] [--summary table|json] [--tracks OUT.txt] [--deliver-timeout 30s]", stdout)
 	cfgPath := fs.String("c", "", "site file (YAML)")
 	paceName := fs.String("pace", "max", "max: every frame as fast as the CPU allows; realtime: source clock, drop when behind")
 	format := fs.String("summary", "table", "table: counts beside the truth when known; json: one JSON line last")
 	tracksOut := fs.String("tracks", "", "also write tracks in the MOTChallenge text format to this file (-<source> added with several sources)")
+	deliver := fs.Duration("deliver-timeout", 30*time.Second, "at the end, wait this long for every event to reach the stream (the rest stays in the outbox)")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -64,11 +96,13 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		return err
 	}
 	log := newLogger(cfg, stderr)
-	p, err := pipeline.Build(cfg, pipeline.Options{Pace: pace, Log: log, TracksOut: *tracksOut})
+	p, err := pipeline.Build(cfg, pipeline.Options{Pace: pace, Log: log, TracksOut: *tracksOut, DeliverTimeout: *deliver})
 	if err != nil {
 		return err
 	}
 	defer p.Close()
+	stopReopen := reopenOnSignal(p, log)
+	defer stopReopen()
 	start := time.Now()
 	runErr := p.Run(ctx)
 	elapsed := time.Since(start)
@@ -85,14 +119,18 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	return outcome(runErr, s, true)
 }
 
-// outcome is the error a run ends with: a processing error, then events not
-// delivered (exit 1), then, for replays, input not read to its end (exit 3).
+// outcome is the error a run ends with: a processing error, then events lost
+// (exit 1; a replay also fails on events still pending), then, for replays,
+// input not read to its end (exit 3).
 func outcome(runErr error, s pipeline.Summary, replay bool) error {
+	e := s.Events
 	switch {
 	case runErr != nil:
 		return runErr
-	case s.EventsFailed > 0:
-		return fmt.Errorf("%d events could not be published (see the log)", s.EventsFailed)
+	case e.Dropped > 0 || (e.JSONL != nil && (e.JSONL.Dropped > 0 || e.JSONL.Failed > 0)):
+		return fmt.Errorf("%d events lost (see the log): %s", e.Dropped+jsonlLost(e.JSONL), deliveryLine(e))
+	case replay && e.Pending > 0:
+		return fmt.Errorf("%d events not delivered by the end (kept in the outbox for the next run): %s", e.Pending, deliveryLine(e))
 	case len(s.EndedEarly) > 0:
 		return fmt.Errorf("%w: recording ended before its declared length: %s", errIncomplete, strings.Join(s.EndedEarly, ", "))
 	case replay && s.Interrupted:
@@ -107,12 +145,8 @@ func printTable(w io.Writer, s pipeline.Summary, elapsed time.Duration) {
 	if elapsed > 0 {
 		fps = float64(s.FramesProcessed) / elapsed.Seconds()
 	}
-	fmt.Fprintf(w, "frames read %d, processed %d, dropped %d; events published %d", s.FramesRead, s.FramesProcessed,
-		s.FramesDropped, s.EventsPublished)
-	if s.EventsFailed > 0 {
-		fmt.Fprintf(w, ", not published %d", s.EventsFailed)
-	}
-	fmt.Fprintln(w)
+	fmt.Fprintf(w, "frames read %d, processed %d, dropped %d\n", s.FramesRead, s.FramesProcessed, s.FramesDropped)
+	fmt.Fprintf(w, "events %s\n", deliveryLine(s.Events))
 	fmt.Fprintf(w, "%.1f s, %.1f frames/s, peak RSS %.0f MiB\n", elapsed.Seconds(), fps, peakRSSMiB())
 	if s.Interrupted {
 		fmt.Fprintln(w, "interrupted: the counts cover only the frames read before the stop")
@@ -173,4 +207,23 @@ func peakRSSMiB() float64 {
 		return 0
 	}
 	return float64(ru.Maxrss) / 1024 // Linux reports KiB
+}
+
+// deliveryLine says what became of the events, in events.
+func deliveryLine(e pipeline.DeliveryStats) string {
+	line := fmt.Sprintf("produced %d, delivered %d, pending %d, dropped %d", e.Produced, e.Acked, e.Pending, e.Dropped)
+	if e.Failures > 0 {
+		line += fmt.Sprintf(", failed attempts %d", e.Failures)
+	}
+	if j := e.JSONL; j != nil {
+		line += fmt.Sprintf("; file written %d, dropped %d, failed %d", j.Written, j.Dropped, j.Failed)
+	}
+	return line
+}
+
+func jsonlLost(j *pipeline.SinkStats) int64 {
+	if j == nil {
+		return 0
+	}
+	return j.Dropped + j.Failed
 }

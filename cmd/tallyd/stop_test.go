@@ -169,7 +169,7 @@ func TestReplayInterrupted(t *testing.T) {
 // TestSignalsStopOtherCommands: listen, track and score stop on SIGTERM
 // within about a second, even on big inputs.
 func TestSignalsStopOtherCommands(t *testing.T) {
-	srv, err := bus.StartEmbedded("127.0.0.1", 0, nil)
+	srv, err := bus.StartEmbedded(bus.EmbeddedOptions{}, nil)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -18,7 +18,7 @@ import (
 
 func startServer(t *testing.T) *Embedded {
 	t.Helper()
-	srv, err := StartEmbedded("127.0.0.1", 0, nil)
+	srv, err := StartEmbedded(EmbeddedOptions{Host: "127.0.0.1"}, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -39,7 +39,7 @@ func connect(t *testing.T, url string) *nats.Conn {
 func testEvent(site, source, rule string, kind events.Kind, track int64) events.Event {
 	types := map[events.Kind]string{"in": events.TypeLineIn, "out": events.TypeLineOut, "enter": events.TypeZoneEnter, "exit": events.TypeZoneExit, "dwell": events.TypeZoneDwell}
 	return events.Event{
-		SpecVersion: events.SpecVersion, ID: events.EventID(site, source, rule, kind, track, 1),
+		SpecVersion: events.SpecVersion, ID: events.EventID(site, source, rule, kind, track, 1, ""),
 		Source: events.EventSource(site, source), Type: types[kind], Subject: rule,
 		Time: time.Date(2025, 3, 1, 8, 0, 0, 0, time.UTC), DataContentType: events.ContentType,
 		Data: events.Data{Site: site, Source: source, Rule: rule, Kind: kind, TrackID: track, Class: "person"},
@@ -282,7 +282,7 @@ func TestSubscribeReturnsOnCancelAndClose(t *testing.T) {
 	}
 }
 
-func must(t *testing.T, err error) {
+func must(t testing.TB, err error) {
 	t.Helper()
 	if err != nil {
 		t.Fatal(err)

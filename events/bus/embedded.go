@@ -7,10 +7,12 @@ import (
 	"log/slog"
 	"net"
 	"strconv"
+	"strings"
 	"sync"
 	"time"
 
 	"github.com/nats-io/nats-server/v2/server"
+	"github.com/nats-io/nkeys"
 )
 
 // readyTimeout bounds how long StartEmbedded waits for the listener.
@@ -22,23 +24,86 @@ var ErrNotReady = errors.New("embedded nats server not ready")
 
 // Embedded is an in-process NATS server for setups without their own.
 type Embedded struct {
-	srv  *server.Server
-	url  string
-	port int
-	once sync.Once
+	srv       *server.Server
+	url       string
+	port      int
+	jetStream bool
+	once      sync.Once
 }
 
-// StartEmbedded starts a NATS server in this process, listening on host:port
-// (port 0 picks a free port; an empty host means 127.0.0.1), and returns once
-// it accepts connections. Its own log lines go to log at debug level, or
-// warning and error for problems; a nil log discards them.
-func StartEmbedded(host string, port int, log *slog.Logger) (*Embedded, error) {
+// EmbeddedOptions configures StartEmbedded.
+type EmbeddedOptions struct {
+	// Host and Port are where the server listens: an empty Host means
+	// DefaultHost (loopback), port 0 a free port.
+	Host string
+	Port int
+	// StoreDir turns JetStream on with its file store in this directory;
+	// empty leaves JetStream off.
+	StoreDir string
+	// MaxStore caps the bytes JetStream keeps on disk; 0 is the server's
+	// default, 75% of the disk space free at start (nats-server
+	// disk_avail.go).
+	MaxStore int64
+	// SyncAlways makes JetStream write each message to disk (fsync) before
+	// acknowledging it. Off, the server syncs every two minutes (its default,
+	// nats-server filestore.go defaultSyncInterval):
+	// an acknowledged event survives a crash of the process but not a power
+	// cut of the machine within that time.
+	SyncAlways bool
+	// User and Password, when set, are required of every client.
+	User, Password string
+	// NKey is a public user NKey ("U..."): clients holding its seed may
+	// connect by signing the server's nonce. It can be given with User.
+	NKey string
+}
+
+// ErrOpenToNetwork is wrapped by StartEmbedded's refusal to listen beyond
+// loopback without authentication.
+var ErrOpenToNetwork = errors.New("anyone on the network could publish forged counts")
+
+// check reports options StartEmbedded cannot use.
+func (o EmbeddedOptions) check() error {
+	if o.Port < 0 || o.Port > 65535 {
+		return fmt.Errorf("%w: port %d out of range 0..65535", ErrNotReady, o.Port)
+	}
+	if o.MaxStore < 0 {
+		return fmt.Errorf("%w: max store %d bytes is negative", ErrNotReady, o.MaxStore)
+	}
+	if (o.User == "") != (o.Password == "") {
+		return fmt.Errorf("%w: user and password go together (user %q, password set: %t)", ErrNotReady, o.User, o.Password != "")
+	}
+	if o.NKey != "" && !nkeys.IsValidPublicUserKey(o.NKey) {
+		return fmt.Errorf("%w: nkey %q is not a public user nkey (\"U...\")", ErrNotReady, o.NKey)
+	}
+	if o.User == "" && o.NKey == "" && !isLoopback(o.Host) {
+		return fmt.Errorf("embedded NATS server on %s without user/password or NKey: %w", o.Host, ErrOpenToNetwork)
+	}
+	return nil
+}
+
+// isLoopback tells whether host is reachable from this machine only.
+func isLoopback(host string) bool {
+	if host == "" || strings.EqualFold(host, "localhost") {
+		return true
+	}
+	ip := net.ParseIP(host)
+	return ip != nil && ip.IsLoopback()
+}
+
+// StartEmbedded starts a NATS server in this process and returns once it
+// accepts connections. It listens on loopback unless told otherwise, and
+// refuses any other address without user/password or NKey authentication
+// (ErrOpenToNetwork). With a StoreDir it runs JetStream on a file store.
+// Its own log lines go to log at debug level, or warning and error for
+// problems; a nil log discards them.
+func StartEmbedded(o EmbeddedOptions, log *slog.Logger) (*Embedded, error) {
 	if log == nil {
 		log = slog.New(slog.DiscardHandler)
 	}
-	if port < 0 || port > 65535 {
-		return nil, fmt.Errorf("%w: port %d out of range 0..65535", ErrNotReady, port)
+	if err := o.check(); err != nil {
+		return nil, err
 	}
+	host, port := o.Host, o.Port
 	if host == "" {
 		host = DefaultHost
 	}
@@ -50,6 +115,18 @@ func StartEmbedded(host string, port int, log *slog.Logger) (*Embedded, error) {
 	}
 	if port == 0 {
 		opts.Port = server.RANDOM_PORT
+	}
+	if o.StoreDir != "" {
+		opts.JetStream = true
+		opts.StoreDir = o.StoreDir
+		opts.JetStreamMaxStore = o.MaxStore
+		opts.SyncAlways = o.SyncAlways
+	}
+	if o.User != "" {
+		opts.Users = []*server.User{{Username: o.User, Password: o.Password}}
+	}
+	if o.NKey != "" {
+		opts.Nkeys = []*server.NkeyUser{{Nkey: o.NKey}}
 	}
 	srv, err := server.NewServer(opts)
 	if err != nil {
@@ -71,15 +148,20 @@ func StartEmbedded(host string, port int, log *slog.Logger) (*Embedded, error) {
 		srv.WaitForShutdown()
 		return nil, fmt.Errorf("%w: no listener on %s after %s", ErrNotReady, net.JoinHostPort(host, strconv.Itoa(port)), readyTimeout)
 	}
+	if o.StoreDir != "" && !srv.JetStreamEnabled() {
+		srv.Shutdown()
+		srv.WaitForShutdown()
+		return nil, fmt.Errorf("%w: jetstream did not start in %s", ErrNotReady, o.StoreDir)
+	}
 	addr, ok := srv.Addr().(*net.TCPAddr)
 	if !ok {
 		srv.Shutdown()
 		srv.WaitForShutdown()
 		return nil, fmt.Errorf("%w: no TCP listener", ErrNotReady)
 	}
-	e := &Embedded{srv: srv, port: addr.Port}
+	e := &Embedded{srv: srv, port: addr.Port, jetStream: o.StoreDir != ""}
 	e.url = "nats://" + net.JoinHostPort(dialHost(host), strconv.Itoa(addr.Port))
-	log.Debug("embedded nats server ready", "url", e.url)
+	log.Debug("embedded nats server ready", "url", e.url, "jetstream", e.jetStream)
 	return e, nil
 }
 
@@ -97,6 +179,9 @@ func dialHost(host string) string {
 
 // URL is the address clients connect to, e.g. "nats://127.0.0.1:4222".
 func (e *Embedded) URL() string { return e.url }
+
+// JetStream tells whether the server runs JetStream (a StoreDir was given).
+func (e *Embedded) JetStream() bool { return e.jetStream }
 
 // Port is the port the server listens on (the one picked when 0 was asked).
 func (e *Embedded) Port() int { return e.port }

@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"strings"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -78,7 +79,48 @@ func (p *Publisher) Publish(ctx context.Context, ev events.Event) error {
 	return nil
 }
 
-// Published is the number of events accepted by Publish so far.
+// PublishRaw sends an event already encoded as JSON on subject (the one
+// Subject gives for it), for callers that encode each event once for
+// several sinks. Like Publish, it buffers while disconnected; an error
+// means the event was not accepted (a subject outside the prefix or not of
+// five parts, full reconnect buffer, closed publisher).
+func (p *Publisher) PublishRaw(subject string, data []byte) error {
+	if p.closed.Load() {
+		return fmt.Errorf("publish on %s: %w", subject, events.ErrClosed)
+	}
+	if err := p.checkSubject(subject); err != nil {
+		return fmt.Errorf("publish on %s: %w", subject, err)
+	}
+	if err := p.nc.Publish(subject, data); err != nil {
+		return fmt.Errorf("publish on %s: %w", subject, err)
+	}
+	p.published.Add(1)
+	return nil
+}
+
+// checkSubject accepts "<prefix>.<site>.<source>.<rule>.<kind>".
+func (p *Publisher) checkSubject(subject string) error {
+	if p.prefixErr != nil {
+		return p.prefixErr
+	}
+	rest, ok := strings.CutPrefix(subject, p.prefix+".")
+	if !ok {
+		return fmt.Errorf("%w: subject outside prefix %q", ErrInvalidToken, p.prefix)
+	}
+	toks := strings.Split(rest, ".")
+	if len(toks) != 4 {
+		return fmt.Errorf("%w: %d tokens after the prefix, want 4 (site.source.rule.kind)", ErrInvalidToken, len(toks))
+	}
+	for _, tok := range toks {
+		if err := ValidToken(tok); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// Published is the number of events accepted by Publish and PublishRaw so
+// far.
 func (p *Publisher) Published() int64 { return p.published.Load() }
 
 // Flush waits until the server has received everything published so far.

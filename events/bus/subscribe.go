@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"sync"
+	"time"
 
 	"github.com/nats-io/nats.go"
 
@@ -56,7 +57,12 @@ type SubscribeOption func(*subscribeOpts)
 type subscribeOpts struct {
 	onMalformed func(*MalformedError)
 	onReady     func()
+	onDropped   func(n int)
+	bufferMsgs  int
 }
+
+// dropCheck is how often Subscribe looks for dropped messages.
+const dropCheck = 250 * time.Millisecond
 
 // OnMalformed hands malformed messages to fn and keeps listening. Without
 // it, Subscribe stops at the first malformed message and returns it.
@@ -68,6 +74,21 @@ func OnMalformed(fn func(*MalformedError)) SubscribeOption {
 // a caller knows events published from then on will be seen.
 func OnReady(fn func()) SubscribeOption {
 	return func(o *subscribeOpts) { o.onReady = fn }
+}
+
+// OnDropped calls fn with the number of events the NATS client dropped
+// because fn of Subscribe did not keep up (a slow consumer: core NATS does
+// not wait for it), checked every quarter second and once more at the end.
+// A core subscription loses events this way; a JetStream one (Follow) does
+// not.
+func OnDropped(fn func(n int)) SubscribeOption {
+	return func(o *subscribeOpts) { o.onDropped = fn }
+}
+
+// BufferLimit sets how many received events may wait for fn before the
+// client drops them (the NATS client's default is 512 Ki messages).
+func BufferLimit(msgs int) SubscribeOption {
+	return func(o *subscribeOpts) { o.bufferMsgs = msgs }
 }
 
 // Subscribe delivers the events matching filter to fn until ctx is done
@@ -117,6 +138,12 @@ func Subscribe(ctx context.Context, nc *nats.Conn, filter Filter, fn func(subjec
 	if err != nil {
 		return fmt.Errorf("subscribe to %s: %w", subj, err)
 	}
+	if o.bufferMsgs > 0 {
+		if err := sub.SetPendingLimits(o.bufferMsgs, -1); err != nil {
+			_ = sub.Unsubscribe()
+			return fmt.Errorf("subscribe to %s: %w", subj, err)
+		}
+	}
 	defer func() {
 		_ = sub.Unsubscribe() // best effort: the connection may be gone
 		mu.Lock()
@@ -131,12 +158,29 @@ func Subscribe(ctx context.Context, nc *nats.Conn, filter Filter, fn func(subjec
 	if o.onReady != nil {
 		o.onReady()
 	}
-	select {
-	case <-ctx.Done():
-		return nil
-	case err := <-stop:
-		return err
-	case <-closed:
-		return fmt.Errorf("subscribe to %s: %w", subj, nats.ErrConnectionClosed)
+	var dropped int // reported so far
+	checkDrops := func() {
+		if o.onDropped == nil {
+			return
+		}
+		if n, err := sub.Dropped(); err == nil && n > dropped {
+			o.onDropped(n - dropped)
+			dropped = n
+		}
+	}
+	defer checkDrops()
+	tick := time.NewTicker(dropCheck)
+	defer tick.Stop()
+	for {
+		select {
+		case <-ctx.Done():
+			return nil
+		case err := <-stop:
+			return err
+		case <-closed:
+			return fmt.Errorf("subscribe to %s: %w", subj, nats.ErrConnectionClosed)
+		case <-tick.C:
+			checkDrops()
+		}
 	}
 }

@@ -1,6 +1,10 @@
 // Package bus publishes counting events on NATS and reads them back: an
-// embedded server for single-box setups, a reconnecting connection, a
-// publisher and a filtered subscriber. Subjects are
+// embedded server for single-box setups (with JetStream and a login), a
+// reconnecting and authenticated connection, a core publisher and a
+// filtered subscriber, and for persistence a JetStream stream per site, a
+// Deliverer that drains an outbox into it (at least once from the outbox,
+// exactly once in the stream), Follow to read the stream back, and a
+// key-value bucket for live state. Subjects are
 // "<prefix>.<site>.<source>.<rule>.<kind>".
 package bus
 

@@ -28,6 +28,11 @@ type Config struct {
 	Rules    []Rule   `yaml:"rules"`
 	Output   Output   `yaml:"output"`
 	Log      Log      `yaml:"log"`
+	// StateDir holds what tallyd keeps between runs: the outbox and the
+	// embedded server's JetStream store. Relative to the site file's
+	// folder; default .tallyd.
+	StateDir  string    `yaml:"state_dir"`
+	Intervals Intervals `yaml:"intervals"`
 
 	// File is the path the config was read from ("" when built in code).
 	File  string `yaml:"-"`
@@ -187,27 +192,6 @@ type Rule struct {
 	Band *float64 `yaml:"band"`
 	// Dwell raises one alert per stay when a track stays in the zone this long.
 	Dwell Duration `yaml:"dwell"`
-}
-
-// Output says where events go.
-type Output struct {
-	NATS  NATS   `yaml:"nats"`
-	JSONL string `yaml:"jsonl"` // optional JSON-lines file, relative to the config file's folder
-}
-
-// NATS configures the event bus.
-type NATS struct {
-	// URL of a NATS server; empty starts an embedded server.
-	URL      string   `yaml:"url"`
-	Embedded Embedded `yaml:"embedded"`
-	// Prefix is the first subject token: <prefix>.<site>.<source>.<rule>.<kind>.
-	Prefix string `yaml:"prefix"`
-}
-
-// Embedded configures the in-process NATS server.
-type Embedded struct {
-	Host string `yaml:"host"`
-	Port int    `yaml:"port"` // 0 picks a free port
 }
 
 // Log configures logging.

@@ -56,7 +56,7 @@ func TestErrors(t *testing.T) {
 		{"malformed YAML", "site: [ferry\n", "site.yaml:1: malformed YAML: did not find expected ',' or ']'"},
 		{"empty", "", "site.yaml: file is empty"},
 		{"unknown key", base + "sauce: 1\n",
-			"site.yaml:10: sauce: unknown key (known keys: detector, log, output, rules, site, sources, tracker)"},
+			"site.yaml:10: sauce: unknown key (known keys: detector, intervals, log, output, rules, site, sources, state_dir, tracker)"},
 		{"unknown nested key", strings.Replace(base, "      seed: 1", "      seed: 1\n      sed: 2", 1),
 			"site.yaml:6: sources[0].scene.sed: unknown key (known keys: crossings, duration, fps, height, noise, seed, visitors, width)"},
 		{"wrong type", strings.Replace(base, "      seed: 1", "      seed: one", 1),
@@ -99,6 +99,35 @@ func TestErrors(t *testing.T) {
 			"site.yaml:4: sources[0].start_time: must be from 1970-01-01 to before 2200-01-01 (found 9999-12-31T23:59:59Z)"},
 		{"start time before 1970", strings.Replace(base, "    scene:", "    start_time: 1969-12-31T23:59:59Z\n    scene:", 1),
 			"site.yaml:4: sources[0].start_time: must be from 1970-01-01 to before 2200-01-01 (found 1969-12-31T23:59:59Z)"},
+		// Delivery (README "Delivery").
+		{"embedded on the network without login", base + "output:\n  nats:\n    embedded: {host: 0.0.0.0}\n",
+			"site.yaml:12: output.nats.embedded.host: 0.0.0.0 is reachable from the network: set embedded.user and password (or nkey), or anyone there can publish forged counts"},
+		{"embedded user without password", base + "output:\n  nats:\n    embedded: {user: counter}\n",
+			"site.yaml:12: output.nats.embedded.password: is required with embedded.user"},
+		{"two kinds of auth", base + "output:\n  nats:\n    url: nats://x:4222\n    auth: {user: u, password: p, token: t}\n",
+			"site.yaml:13: output.nats.auth: set one of user and password, token, nkey_seed and creds (found 2)"},
+		{"auth without url", base + "output:\n  nats:\n    auth: {token: t}\n",
+			"site.yaml:12: output.nats.auth: applies to an external server (url); the embedded server's login is embedded.user/password"},
+		{"missing creds file", base + "output:\n  nats:\n    url: nats://x:4222\n    auth: {creds: nowhere.creds}\n",
+			`site.yaml:13: output.nats.auth.creds: cannot open "nowhere.creds": no such file or directory`},
+		{"missing tls key", base + "output:\n  nats:\n    url: nats://x:4222\n    tls: {cert: config.go}\n",
+			"site.yaml:13: output.nats.tls: set cert and key together"},
+		{"secret from unset env", base + "output:\n  nats:\n    url: nats://x:4222\n    auth: {user: u, password: \"env:TALLYD_TEST_UNSET_PW\"}\n",
+			"site.yaml:13: output.nats.auth.password: environment variable TALLYD_TEST_UNSET_PW is not set"},
+		{"secret from missing file", base + "output:\n  nats:\n    url: nats://x:4222\n    auth: {token: \"file:nowhere.token\"}\n",
+			`site.yaml:13: output.nats.auth.token: cannot read "nowhere.token": no such file or directory`},
+		{"jetstream mode", base + "output:\n  nats:\n    jetstream: {mode: maybe}\n",
+			`site.yaml:12: output.nats.jetstream.mode: want auto, required or off (found "maybe")`},
+		{"duplicate window", base + "output:\n  nats:\n    jetstream: {duplicate_window: 0s}\n",
+			"site.yaml:12: output.nats.jetstream.duplicate_window: must be at least 1s and at most max_age (found 0s)"},
+		{"replicas", base + "output:\n  nats:\n    jetstream: {replicas: 7}\n",
+			"site.yaml:12: output.nats.jetstream.replicas: must be within 1..5 (found 7)"},
+		{"small outbox", base + "output:\n  outbox: {max_bytes: 1000}\n",
+			"site.yaml:11: output.outbox.max_bytes: must be at least 1 MiB (1048576) (found 1000)"},
+		{"interval", base + "intervals: {every: 90s}\n",
+			"site.yaml:10: intervals.every: want a whole number of minutes from 1m0s to 24h0m0s, or 0 for none (found 1m30s)"},
+		{"time zone", base + "intervals: {every: 15m, time_zone: Mars/Olympus}\n",
+			`site.yaml:10: intervals.time_zone: want an IANA time zone such as Europe/Oslo or UTC (found "Mars/Olympus")`},
 		{"frame pixels", strings.Replace(base, "    scene:", "    max_frame_pixels: 200000000\n    scene:", 1),
 			"site.yaml:4: sources[0].max_frame_pixels: must be within 0..100000000, 0 for the default of 16 megapixels (found 200000000)"},
 		{"bad nats url", base + "output:\n  nats:\n    url: http://user:secret@x:1\n",
@@ -296,5 +325,31 @@ func TestSizeLimit(t *testing.T) {
 	_, err := Load(p)
 	if err == nil || !strings.HasSuffix(err.Error(), "big.yaml: the site file is over the limit of 1048576 bytes") {
 		t.Fatalf("err = %v", err)
+	}
+}
+
+// TestSecretsFromElsewhere: env:, file: and literal: secrets are resolved
+// at load, print as xxxxx, and never show in errors.
+func TestSecretsFromElsewhere(t *testing.T) {
+	dir := t.TempDir()
+	if err := os.WriteFile(filepath.Join(dir, "token"), []byte("tok-from-file\n"), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	t.Setenv("TALLYD_TEST_PW", "pw-from-env")
+	y := base + "output:\n  nats:\n    embedded: {user: counter, password: \"env:TALLYD_TEST_PW\"}\n"
+	cfg, err := Parse(filepath.Join(dir, "site.yaml"), []byte(y))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if pw := cfg.Output.NATS.Embedded.Password; pw.Value() != "pw-from-env" || fmt.Sprint(pw) != "xxxxx" {
+		t.Errorf("password %q printed %v", pw.Value(), pw)
+	}
+	y = base + "output:\n  nats:\n    url: nats://x:4222\n    auth: {token: \"file:token\"}\n"
+	if cfg, err = Parse(filepath.Join(dir, "site.yaml"), []byte(y)); err != nil || cfg.Output.NATS.Auth.Token.Value() != "tok-from-file" {
+		t.Errorf("token from file: %v %q", err, cfg.Output.NATS.Auth.Token.Value())
+	}
+	y = base + "output:\n  nats:\n    url: nats://x:4222\n    auth: {token: \"literal:env:not-a-variable\"}\n"
+	if cfg, err = Parse(filepath.Join(dir, "site.yaml"), []byte(y)); err != nil || cfg.Output.NATS.Auth.Token.Value() != "env:not-a-variable" {
+		t.Errorf("literal token: %v %q", err, cfg.Output.NATS.Auth.Token.Value())
 	}
 }

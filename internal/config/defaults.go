@@ -7,6 +7,7 @@ import (
 	"tallyd/detect/onnx"
 	"tallyd/events"
 	"tallyd/events/bus"
+	"tallyd/events/outbox"
 	"tallyd/track"
 )
 
@@ -43,6 +44,7 @@ func Defaults() Config {
 	m := motion.DefaultConfig()
 	o := onnx.Defaults()
 	tr := track.DefaultSettings()
+	js := bus.DefaultStreamSettings()
 	bt, iou := tr.ByteTrack, tr.Baseline
 	return Config{
 		Detector: Detector{
@@ -71,11 +73,18 @@ func Defaults() Config {
 					Acceleration: bt.Motion.Acceleration, SizeAcceleration: bt.Motion.SizeAcceleration},
 			},
 		},
-		Output: Output{NATS: NATS{
-			Embedded: Embedded{Host: bus.DefaultHost, Port: bus.DefaultPort},
-			Prefix:   bus.DefaultPrefix,
-		}},
-		Log: Log{Level: DefaultLogLevel, Format: DefaultLogFormat},
+		Output: Output{
+			NATS: NATS{
+				Embedded: Embedded{Host: bus.DefaultHost, Port: bus.DefaultPort},
+				Prefix:   bus.DefaultPrefix,
+				JetStream: JetStream{Mode: JetStreamAuto, MaxAge: Duration{js.MaxAge}, MaxBytes: js.MaxBytes,
+					DuplicateWindow: Duration{js.Duplicates}, Replicas: js.Replicas, MaxPending: bus.DefaultMaxPending},
+			},
+			Outbox: Outbox{MaxBytes: outbox.DefaultMaxBytes, MaxAge: Duration{outbox.DefaultMaxAge}},
+		},
+		Log:       Log{Level: DefaultLogLevel, Format: DefaultLogFormat},
+		StateDir:  DefaultStateDir,
+		Intervals: Intervals{TimeZone: DefaultTimeZone},
 	}
 }
 

@@ -121,8 +121,13 @@ func Parse(name string, data []byte, checks ...Check) (*Config, error) {
 	cfg.lines = w.lines
 	cfg.fillRuleDefaults()
 	cfg.fillSourceDefaults()
-	if err := cfg.Validate(checks...); err != nil {
-		return nil, err
+	serrs := cfg.resolveSecrets()
+	if err := cfg.Validate(checks...); err != nil || len(serrs) > 0 {
+		var verrs Errors
+		if err != nil {
+			verrs = err.(Errors)
+		}
+		return nil, append(serrs, verrs...)
 	}
 	return &cfg, nil
 }

@@ -1,8 +1,6 @@
 package config
 
 import (
-	"fmt"
-	"log/slog"
 	"math"
 	"net/url"
 	"os"
@@ -15,41 +13,6 @@ import (
 
 // streamSchemes are the URL schemes a url source may use.
 var streamSchemes = map[string]bool{"rtsp": true, "rtsps": true, "http": true, "https": true}
-
-// Secret is a password from the site file. It prints as "xxxxx" (in logs,
-// errors, %v and %+v dumps, YAML and JSON); Value gives the text to use.
-type Secret string
-
-const redacted = "xxxxx"
-
-// Value is the secret itself, for opening the source only.
-func (s Secret) Value() string { return string(s) }
-
-// String is the redacted form: "xxxxx", or "" when no password is set.
-func (s Secret) String() string {
-	if s == "" {
-		return ""
-	}
-	return redacted
-}
-
-// Format prints the redacted form for every verb.
-func (s Secret) Format(f fmt.State, verb rune) {
-	if verb == 'q' {
-		fmt.Fprintf(f, "%q", s.String())
-		return
-	}
-	_, _ = f.Write([]byte(s.String()))
-}
-
-// LogValue keeps the secret out of slog output.
-func (s Secret) LogValue() slog.Value { return slog.StringValue(s.String()) }
-
-// MarshalYAML writes the redacted form.
-func (s Secret) MarshalYAML() (any, error) { return s.String(), nil }
-
-// MarshalJSON writes the redacted form.
-func (s Secret) MarshalJSON() ([]byte, error) { return []byte(fmt.Sprintf("%q", s.String())), nil }
 
 // Display is what the source reads, fit for logs and status output: the URL
 // with any password hidden (and the username field merged in), the device or

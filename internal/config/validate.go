@@ -47,6 +47,7 @@ func (c *Config) Validate(checks ...Check) error {
 		v.rule(fmt.Sprintf("rules[%d]", i), r, ids, names)
 	}
 	v.output()
+	v.delivery()
 	for _, check := range checks {
 		v.errs = append(v.errs, check(c)...)
 	}

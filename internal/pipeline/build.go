@@ -1,18 +1,25 @@
 package pipeline
 
 import (
+	"context"
 	"errors"
 	"fmt"
 	"log/slog"
+	"os"
 	"sync"
 	"sync/atomic"
 	"time"
+
+	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
 
 	"tallyd/capture"
 	"tallyd/capture/scene"
 	"tallyd/events"
 	"tallyd/events/bus"
+	"tallyd/events/outbox"
 	"tallyd/internal/config"
+	"tallyd/internal/repeat"
 )
 
 // Options are the run-time choices that are not part of the site file.
@@ -26,6 +33,10 @@ type Options struct {
 	StatusEvery time.Duration
 	// ShutdownTimeout bounds draining after the sources stop (default 10 s).
 	ShutdownTimeout time.Duration
+	// DeliverTimeout bounds the wait at the end for the outbox to empty into
+	// the stream (default 5 s); what is left stays in the outbox for the
+	// next start.
+	DeliverTimeout time.Duration
 	// Detector replaces the one the site file describes (tests, benchmarks).
 	Detector Detector
 	// TracksOut, when set, writes each source's tracks in the MOTChallenge
@@ -48,7 +59,9 @@ type Pipeline struct {
 	opts    Options
 	log     *slog.Logger
 	det     Detector
-	outlets []*outlet
+	out     *delivery
+	jsonl   *events.JSONL // nil without output.jsonl
+	run     string        // this run's id, in live sources' event ids
 	sources []*sourceRun
 	drains  []func() error // publishers and track files: flushed and closed when Run ends
 	closers []func() error // everything else, released by Close in reverse order
@@ -56,9 +69,7 @@ type Pipeline struct {
 
 	checking    bool // a dry run: open live sources once, without reconnecting
 	detectCalls atomic.Int64
-	published   atomic.Int64 // events every publisher accepted
-	failed      atomic.Int64 // events at least one publisher refused
-	interrupted atomic.Bool  // stopped before every recorded source ended
+	interrupted atomic.Bool // stopped before every recorded source ended
 	truthOnce   sync.Once
 	truth       map[string]events.Totals
 }
@@ -80,7 +91,10 @@ func Build(cfg *config.Config, opts Options) (_ *Pipeline, err error) {
 	if opts.ShutdownTimeout == 0 {
 		opts.ShutdownTimeout = 10 * time.Second
 	}
-	p := &Pipeline{cfg: cfg, opts: opts, log: opts.Log}
+	if opts.DeliverTimeout == 0 {
+		opts.DeliverTimeout = 5 * time.Second
+	}
+	p := &Pipeline{cfg: cfg, opts: opts, log: opts.Log, run: newRunID(opts.Start)}
 	defer func() {
 		if err != nil {
 			_ = p.Close()
@@ -185,40 +199,184 @@ func (p *Pipeline) openSource(i int, sc config.Source) (*sourceRun, error) {
 	return sr, nil
 }
 
-// openOutputs starts the embedded NATS server or connects to the configured
-// one (an unreachable external server is retried in the background while
-// events wait in the client's buffer), and opens the JSON-lines file.
+// openOutputs starts the embedded NATS server (with JetStream on state_dir)
+// or connects to the configured one (an unreachable external server is
+// retried in the background), sets up the stream, the outbox and the live
+// state, and opens the JSON-lines file. Nothing is started until Run.
 func (p *Pipeline) openOutputs() error {
 	n := p.cfg.Output.NATS
+	d := &delivery{log: p.log, prefix: n.Prefix,
+		drops: repeat.New(p.log, "events dropped", repeat.DefaultPeriod).AtLevel(slog.LevelError)}
+	p.out = d
 	url := n.URL
+	useJS := n.JetStream.Mode != config.JetStreamOff
 	if url == "" {
-		srv, err := bus.StartEmbedded(n.Embedded.Host, n.Embedded.Port, p.log)
+		eo := embeddedOptions(p.cfg)
+		if !useJS {
+			eo.StoreDir = ""
+		}
+		srv, err := bus.StartEmbedded(eo, p.log)
 		if err != nil {
-			return fmt.Errorf("start embedded NATS server on %s:%d: %w", n.Embedded.Host, n.Embedded.Port, err)
+			return fmt.Errorf("start embedded NATS server on %s:%d: %w", eo.Host, eo.Port, err)
 		}
 		p.closers = append(p.closers, func() error { srv.Shutdown(); return nil })
 		url = srv.URL()
-		p.log.Info("embedded NATS server started", "url", url)
+		p.log.Info("embedded NATS server started", "url", url, "jetstream", useJS)
 	}
 	p.natsURL = url
-	nc, err := bus.Connect(url, "tallyd-"+p.cfg.Site, p.log, bus.RetryFirst(n.URL != ""))
+	nc, err := p.connect(url)
 	if err != nil {
-		return fmt.Errorf("connect to NATS at %s: %w", bus.RedactURL(url), err)
+		return err
 	}
-	pub := bus.NewPublisher(nc, n.Prefix)
-	p.drains = append(p.drains, pub.Close)
-	p.addOutlet("nats", pub)
+	p.closers = append(p.closers, func() error { nc.Close(); return nil })
 	if n.URL != "" && !nc.IsConnected() {
-		p.log.Warn("NATS server not reachable yet; events wait in the client's buffer until it is", "url", bus.RedactURL(url))
+		p.log.Warn("NATS server not reachable yet; events wait in the outbox until it is", "url", bus.RedactURL(url))
+	}
+	ctx, cancel := context.WithTimeout(context.Background(), brokerTimeout)
+	defer cancel()
+	var kv *bus.State
+	if useJS {
+		js, err := jetstream.New(nc)
+		if err != nil {
+			return fmt.Errorf("jetstream: %w", err)
+		}
+		err = errNotConnected
+		if nc.IsConnected() {
+			_, err = bus.EnsureStream(ctx, js, streamSettings(p.cfg))
+		}
+		switch {
+		case errors.Is(err, bus.ErrNoJetStream) && n.JetStream.Mode == config.JetStreamAuto && nc.IsConnected():
+			p.log.Warn("the NATS server has no JetStream: events go to plain subjects, without persistence", "url", bus.RedactURL(url))
+			useJS = false
+		case errors.Is(err, bus.ErrNoJetStream) && nc.IsConnected():
+			return p.cfg.Errorf("output.nats.jetstream.mode", "required, but the server at %s has no JetStream", bus.RedactURL(url))
+		case err != nil && nc.IsConnected():
+			return p.cfg.Errorf("output.nats.jetstream", "%v", err)
+		case err != nil:
+			// Set up once the server is there; meanwhile events wait in
+			// the outbox. (With a server that turns out to have no
+			// JetStream they keep waiting: set jetstream.mode: off.)
+			p.log.Warn("stream not set up yet (server unreachable); events wait in the outbox", "err", err)
+			// The deliverer creates the stream when it connects (Prepare);
+			// the live-state bucket is opened here once the server is there.
+			d.setup = func(ctx context.Context) error {
+				kv, err := bus.OpenState(ctx, js, bucketName(p.cfg), n.JetStream.Replicas)
+				if err != nil {
+					return err
+				}
+				d.state.setKV(kv)
+				p.log.Info("live-state bucket set up", "bucket", bucketName(p.cfg))
+				return nil
+			}
+		}
+		if useJS {
+			if err := p.openOutbox(d, js); err != nil {
+				return err
+			}
+			if d.setup == nil {
+				kv, err = bus.OpenState(ctx, js, bucketName(p.cfg), n.JetStream.Replicas)
+				if err != nil {
+					return p.cfg.Errorf("output.nats.jetstream.bucket", "%v", err)
+				}
+			}
+		}
+	}
+	if !useJS {
+		pub := bus.NewPublisher(nc, n.Prefix)
+		d.core = newQueue("nats", queueSize, func(it item) error { return pub.PublishRaw(it.subject, it.data) }, p.log)
+		p.drains = append(p.drains, pub.Close)
+	}
+	if err := os.MkdirAll(p.cfg.Resolve(p.cfg.StateDir), 0o700); err != nil {
+		return p.cfg.Errorf("state_dir", "%v", err)
+	}
+	d.state = newStateSink(kv, p.cfg.StatePath("state.json"), p.log)
+	if err := p.restoreState(ctx, kv); err != nil {
+		return err
 	}
 	if p.cfg.Output.JSONL != "" {
-		path := p.cfg.Resolve(p.cfg.Output.JSONL)
-		j, err := events.NewJSONLFile(path)
+		j, err := events.NewJSONLFile(p.cfg.Resolve(p.cfg.Output.JSONL))
 		if err != nil {
 			return p.cfg.Errorf("output.jsonl", "%v", err)
 		}
+		p.jsonl = j
+		d.jsonl = newQueue("jsonl", queueSize, func(it item) error { return j.WriteLine(it.data) }, p.log)
 		p.drains = append(p.drains, j.Close)
-		p.addOutlet("jsonl", j)
+	}
+	return nil
+}
+
+// errNotConnected stands for "the server cannot be reached yet".
+var errNotConnected = errors.New("the NATS server is not reachable yet")
+
+// connect connects to the NATS server. An external server is tried once
+// first: one that refuses the login is bad input (nothing starts), one that
+// cannot be reached is retried in the background while counting goes on.
+func (p *Pipeline) connect(url string) (*nats.Conn, error) {
+	opts := connectOptions(p.cfg, p.cfg.Output.NATS.URL != "")
+	name := "tallyd-" + p.cfg.Site
+	if p.cfg.Output.NATS.URL == "" {
+		nc, err := bus.Connect(url, name, p.log, opts...)
+		if err != nil {
+			return nil, fmt.Errorf("connect to the embedded NATS server: %w", err)
+		}
+		return nc, nil
+	}
+	nc, err := bus.Connect(url, name, p.log, opts...)
+	switch {
+	case err == nil:
+		return nc, nil
+	case errors.Is(err, nats.ErrAuthorization) || errors.Is(err, bus.ErrCredentials) || errors.Is(err, nats.ErrAuthExpired):
+		return nil, p.cfg.Errorf("output.nats.auth", "%s refused the login: %v", bus.RedactURL(url), err)
+	}
+	nc, err = bus.Connect(url, name, p.log, append(opts, bus.RetryFirst(true))...)
+	if err != nil {
+		return nil, p.cfg.Errorf("output.nats", "connect to %s: %v", bus.RedactURL(url), err)
+	}
+	return nc, nil
+}
+
+// openOutbox opens the outbox under state_dir and the deliverer that drains
+// it into the stream.
+func (p *Pipeline) openOutbox(d *delivery, js jetstream.JetStream) error {
+	o := p.cfg.Output.Outbox
+	ob, err := outbox.Open(p.cfg.StatePath("outbox.db"), outbox.Options{MaxBytes: o.MaxBytes, MaxAge: o.MaxAge.Duration})
+	if err != nil {
+		return p.cfg.Errorf("state_dir", "%v", err)
+	}
+	p.closers = append(p.closers, ob.Close)
+	if st := ob.Stats(); st.Pending > 0 {
+		p.log.Info("outbox holds events from an earlier run; they are sent first", "pending", st.Pending, "oldest", st.Oldest)
+	}
+	d.ob = ob
+	d.obw = outbox.NewWriter(ob, queueSize).ReportTo(repeat.New(p.log, "writing the outbox failed", repeat.DefaultPeriod).AtLevel(slog.LevelError))
+	d.dlv = bus.NewDeliverer(js, ob, d.obw.Appended(), bus.DelivererOptions{
+		MaxPending: p.cfg.Output.NATS.JetStream.MaxPending,
+		// Create the stream on (re)connect, also when someone deleted it.
+		Prepare: func(ctx context.Context) error {
+			_, err := bus.EnsureStream(ctx, js, streamSettings(p.cfg))
+			return err
+		},
+	}, p.log)
+	return nil
+}
+
+// restoreState reads the saved totals: live sources continue them (a
+// recorded source is counted from its start again on every run, so its
+// totals start at 0).
+func (p *Pipeline) restoreState(ctx context.Context, kv *bus.State) error {
+	saved, from, err := loadState(ctx, kv, p.cfg.StatePath("state.json"))
+	if err != nil {
+		p.log.Warn("saved totals not read; live sources count from 0", "err", err)
+		return nil
+	}
+	for _, sr := range p.sources {
+		if st := saved[sr.id]; sr.set.live && len(st) > 0 {
+			sr.restore = st
+			if sr.stages.engine != nil { // opened already: nothing counted yet
+				sr.stages.engine.Restore(st)
+			}
+			p.log.Info("totals continue from the saved state", "source", sr.id, "from", from, "rules", len(st))
+		}
 	}
 	return nil
 }
@@ -236,9 +394,6 @@ func (p *Pipeline) DetectCalls() int64 { return p.detectCalls.Load() }
 func (p *Pipeline) drain() error {
 	err := runAll(p.drains)
 	p.drains = nil
-	for _, o := range p.outlets {
-		o.fails.Flush("sink", o.name)
-	}
 	return err
 }
 

@@ -1,12 +1,13 @@
 package pipeline
 
 import (
+	"context"
 	"errors"
 	"fmt"
 	"log/slog"
 	"time"
 
-	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
 
 	"tallyd/capture"
 	"tallyd/events/bus"
@@ -58,13 +59,29 @@ func Check(cfg *config.Config) (CheckReport, error) {
 		errs = append(errs, checkClasses(cfg, det)...)
 		_ = det.Close()
 	}
-	if u := cfg.Output.NATS.URL; u != "" {
-		rep.NATS = bus.RedactURL(u)
-		nc, err := nats.Connect(u, nats.Name("tallyd-check-"+cfg.Site), nats.Timeout(brokerTimeout))
+	if n := cfg.Output.NATS; n.URL != "" {
+		rep.NATS = bus.RedactURL(n.URL)
+		nc, err := bus.Connect(n.URL, "tallyd-check-"+cfg.Site, nil, connectOptions(cfg, true)...)
 		if err != nil {
 			errs = append(errs, cfg.Errorf("output.nats.url", "cannot reach %s: %v", rep.NATS, err))
 		} else {
 			rep.NATSReply = fmt.Sprintf("server %s, version %s", nc.ConnectedServerName(), nc.ConnectedServerVersion())
+			if n.JetStream.Mode != config.JetStreamOff {
+				ctx, cancel := context.WithTimeout(context.Background(), brokerTimeout)
+				js, jerr := jetstream.New(nc)
+				if jerr == nil {
+					_, jerr = js.AccountInfo(ctx)
+				}
+				cancel()
+				switch {
+				case jerr == nil:
+					rep.NATSReply += ", JetStream"
+				case n.JetStream.Mode == config.JetStreamRequired:
+					errs = append(errs, cfg.Errorf("output.nats.jetstream.mode", "required, but the server at %s has no JetStream (%v)", rep.NATS, jerr))
+				default:
+					rep.NATSReply += ", no JetStream: events would go to plain subjects"
+				}
+			}
 			nc.Close()
 		}
 	}

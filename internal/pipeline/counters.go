@@ -45,13 +45,12 @@ func (d *Drops) add(o Drops) {
 // counters are one source's counts in the detect stage; safe from any
 // goroutine. Frames read and the capture-side drops are the capture worker's.
 type counters struct {
-	processed    atomic.Int64
-	tooOld       atomic.Int64
-	gated        atomic.Int64
-	events       atomic.Int64 // events every publisher accepted
-	eventsFailed atomic.Int64 // events at least one publisher refused
-	detectNanos  atomic.Int64 // time in Detect, shared out per frame
-	ages         latencies
+	processed   atomic.Int64
+	tooOld      atomic.Int64
+	gated       atomic.Int64
+	events      atomic.Int64 // events the source's rules produced
+	detectNanos atomic.Int64 // time in Detect, shared out per frame
+	ages        latencies
 }
 
 func (c *counters) drop(why DropReason) {

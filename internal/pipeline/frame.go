@@ -27,22 +27,26 @@ func (p *Pipeline) process(ctx context.Context, jobs []job) error {
 		sr := j.sr
 		switch j.kind {
 		case jobLost: // 1
-			p.closeLost(ctx, sr, sr.lostConn.Load())
+			p.closeLost(sr, sr.lostConn.Load())
 			continue
 		case jobEnd:
-			p.closeStays(ctx, sr, events.ReasonStreamEnd)
+			p.closeStays(sr, events.ReasonStreamEnd)
+			if e := sr.stages.engine; e != nil {
+				p.publish(sr, sr.cursor.captured, e.FinishIntervals(sr.cursor.seq, sr.cursor.pts))
+				p.out.state.update(sr.id, e.State(sr.cursor.pts))
+			}
 			continue
 		}
 		f := j.frame
 		// 2. A loss report that a newer frame overtook: the old connection's
 		// tracks end first.
 		if sr.cursor.conn != 0 && f.Conn != sr.cursor.conn && sr.cursor.closedFor < sr.cursor.conn {
-			p.closeLost(ctx, sr, sr.cursor.conn)
+			p.closeLost(sr, sr.cursor.conn)
 		}
 		sr.cursor.conn = f.Conn
 		if w, h := f.Mat.Cols(), f.Mat.Rows(); w != sr.stages.w || h != sr.stages.h {
 			if sr.stages.engine != nil {
-				p.closeStays(ctx, sr, events.ReasonSourceLost)
+				p.closeStays(sr, events.ReasonSourceLost)
 				sr.resetTracker()
 			}
 			sr.setupRules(p, w, h)
@@ -76,7 +80,10 @@ func (p *Pipeline) process(ctx context.Context, jobs []job) error {
 				return fmt.Errorf("source %s: write tracks: %w", sr.id, err)
 			}
 		}
-		p.publish(ctx, sr, f.Captured, sr.stages.engine.Step(f.Seq, f.PTS, res))
+		if evs := sr.stages.engine.Step(f.Seq, f.PTS, res); len(evs) > 0 {
+			p.publish(sr, f.Captured, evs)
+			p.out.state.update(sr.id, sr.stages.engine.State(f.PTS))
+		}
 		sr.cursor.seq, sr.cursor.pts, sr.cursor.captured = f.Seq, f.PTS, f.Captured
 		sr.count.processed.Add(1)
 		sr.count.detectNanos.Add(perFrame)
@@ -86,22 +93,22 @@ func (p *Pipeline) process(ctx context.Context, jobs []job) error {
 }
 
 // closeStays ends every zone stay open on a source.
-func (p *Pipeline) closeStays(ctx context.Context, sr *sourceRun, reason events.Reason) {
+func (p *Pipeline) closeStays(sr *sourceRun, reason events.Reason) {
 	if sr.stages.engine == nil {
 		return // never delivered a frame
 	}
 	c := sr.cursor
-	p.publish(ctx, sr, c.captured, sr.stages.engine.CloseAll(c.seq, c.pts, reason))
+	p.publish(sr, c.captured, sr.stages.engine.CloseAll(c.seq, c.pts, reason))
 }
 
 // closeLost ends what a lost connection held open: zone stays (reason
 // source_lost), tracks, the detector's and the gate's memory of the scene.
-func (p *Pipeline) closeLost(ctx context.Context, sr *sourceRun, conn int64) {
+func (p *Pipeline) closeLost(sr *sourceRun, conn int64) {
 	if conn <= sr.cursor.closedFor {
 		return
 	}
 	sr.cursor.closedFor = conn
-	p.closeStays(ctx, sr, events.ReasonSourceLost)
+	p.closeStays(sr, events.ReasonSourceLost)
 	sr.resetTracker()
 	if f, ok := p.det.(Forgetter); ok {
 		f.Forget(sr.id)

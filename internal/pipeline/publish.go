@@ -2,9 +2,7 @@ package pipeline
 
 import (
 	"bufio"
-	"context"
 	"fmt"
-	"log/slog"
 	"os"
 	"path/filepath"
 	"strings"
@@ -12,47 +10,29 @@ import (
 
 	"tallyd/events"
 	"tallyd/internal/motfmt"
-	"tallyd/internal/repeat"
 	"tallyd/track"
 )
 
-// outlet is one publisher and its failures, reported once per period.
-type outlet struct {
-	name  string
-	pub   Publisher
-	fails *repeat.Reporter
-}
-
-func (p *Pipeline) addOutlet(name string, pub Publisher) {
-	p.outlets = append(p.outlets, &outlet{name: name, pub: pub,
-		fails: repeat.New(p.log, "publishing failed", repeat.DefaultPeriod).AtLevel(slog.LevelError)})
-}
-
-// publish stamps each event with its frame's age and hands it to every
-// publisher. An event is published when every publisher accepted it;
-// failures are counted per source and logged once per period per publisher.
-func (p *Pipeline) publish(ctx context.Context, sr *sourceRun, captured time.Time, evs []events.Event) {
+// publish stamps each event with its frame's age and hands it to the
+// delivery, which never waits; a source's counters follow its events.
+func (p *Pipeline) publish(sr *sourceRun, captured time.Time, evs []events.Event) {
 	for i := range evs {
 		ev := &evs[i]
 		if !captured.IsZero() {
 			ms := float64(time.Since(captured).Round(100*time.Microsecond)) / float64(time.Millisecond)
 			ev.Data.FrameAgeMS = &ms
 		}
-		ok := true
-		for _, o := range p.outlets {
-			if err := o.pub.Publish(ctx, *ev); err != nil {
-				ok = false
-				o.fails.Note(err, "sink", o.name, "source", sr.id)
-			}
-		}
-		if ok {
-			p.published.Add(1)
-			sr.count.events.Add(1)
-		} else {
-			p.failed.Add(1)
-			sr.count.eventsFailed.Add(1)
-		}
+		p.out.offer(*ev)
+		sr.count.events.Add(1)
 	}
+}
+
+// ReopenFiles reopens the JSON-lines file (after log rotation moved it).
+func (p *Pipeline) ReopenFiles() error {
+	if p.jsonl == nil {
+		return nil
+	}
+	return p.jsonl.Reopen()
 }
 
 // tracksFile streams one source's tracks in the MOTChallenge text format.

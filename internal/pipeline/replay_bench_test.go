@@ -74,7 +74,7 @@ func benchReplay(b *testing.B, engine onnx.Engine) {
 		b.ReportMetric(ms(pf(st.Post).Wall), "post-ms")
 		b.ReportMetric(ms(pf(st.Post).CPU), "post-cpu-ms")
 		b.ReportMetric(ms(cpu)/frames, "total-cpu-ms")
-		b.Logf("%s: %d frames in %.1f s; events %d; rules %v", engine, sum.FramesProcessed, el.Seconds(), sum.EventsPublished, sum.Rules)
+		b.Logf("%s: %d frames in %.1f s; events %d; rules %v", engine, sum.FramesProcessed, el.Seconds(), sum.Events.Produced, sum.Rules)
 	}
 }
 

@@ -2,6 +2,7 @@ package pipeline
 
 import (
 	"context"
+	"errors"
 	"sync"
 	"time"
 
@@ -9,16 +10,20 @@ import (
 )
 
 // Run processes until every source has ended or ctx is cancelled, then
-// drains what was already captured, closes open zone stays and flushes the
-// publishers. It returns the first processing error, or the publishers'
-// delivery errors.
+// drains what was already captured, closes open zone stays and lets the
+// delivery finish. It returns the first processing error, or the delivery's
+// errors.
 //
 // Shutdown order: capture stops first (ctx); processing, on its own context,
 // finishes the frames already captured and the end of every source; then the
-// publishers flush. ShutdownTimeout bounds the drain.
+// sinks write what they hold and the outbox drains into the stream (what
+// does not make it stays in the outbox for the next start); then the
+// publishers flush. ShutdownTimeout bounds the processing drain,
+// DeliverTimeout the outbox drain.
 func (p *Pipeline) Run(ctx context.Context) error {
 	procCtx, cancelProc := context.WithCancel(context.Background())
 	defer cancelProc()
+	p.out.start()
 	s := newScheduler(p)
 	for _, sr := range p.sources {
 		sr.worker.Out.Notify(s.ready)
@@ -64,18 +69,36 @@ func (p *Pipeline) Run(ctx context.Context) error {
 			<-done
 		}
 	}
-	stopStatus()
 	for _, sr := range p.sources {
 		if sr.worker.Stats().State == capture.StateStopped && !sr.set.live {
 			p.interrupted.Store(true)
 		}
 	}
+	deliver := p.opts.DeliverTimeout
+	if ctx.Err() != nil {
+		// Stopped by a signal: stop within about a second; what is not
+		// delivered by then waits in the outbox for the next start.
+		deliver = min(deliver, time.Second)
+	}
+	outErr := p.out.stop(deliver)
+	stopStatus()
+	p.logDelivery("delivery at stop")
 	flushErr := p.drain()
 	close(errs)
 	for err := range errs {
 		return err
 	}
-	return flushErr
+	return errors.Join(outErr, flushErr)
+}
+
+// logDelivery logs the delivery counters.
+func (p *Pipeline) logDelivery(msg string) {
+	d := p.out.stats()
+	attrs := []any{"produced", d.Produced, "acked", d.Acked, "pending", d.Pending, "dropped", d.Dropped, "failures", d.Failures}
+	if d.JSONL != nil {
+		attrs = append(attrs, "jsonl_written", d.JSONL.Written, "jsonl_dropped", d.JSONL.Dropped, "jsonl_failed", d.JSONL.Failed)
+	}
+	p.log.Info(msg, attrs...)
 }
 
 // startStatus logs one line per source periodically; it returns a stop func.
@@ -98,6 +121,7 @@ func (p *Pipeline) startStatus() func() {
 				for _, s := range p.Status() {
 					p.log.Info("status", s.logAttrs()...)
 				}
+				p.logDelivery("status delivery")
 			}
 		}
 	}()

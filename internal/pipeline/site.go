@@ -5,12 +5,14 @@ package pipeline
 // stage owns its own defaults (the config package copies them).
 
 import (
+	"crypto/rand"
 	"errors"
 	"fmt"
 	"image"
 	"math"
 	"slices"
 	"strings"
+	"time"
 
 	"tallyd/capture"
 	"tallyd/capture/scene"
@@ -18,6 +20,7 @@ import (
 	"tallyd/detect/motion"
 	"tallyd/detect/onnx"
 	"tallyd/events"
+	"tallyd/events/bus"
 	"tallyd/internal/config"
 	"tallyd/internal/motfmt"
 	"tallyd/track"
@@ -314,4 +317,68 @@ func unjoin(err error) []error {
 		return j.Unwrap()
 	}
 	return []error{err}
+}
+
+// embeddedOptions is the in-process NATS server: JetStream on state_dir,
+// and a login when the site file sets one.
+func embeddedOptions(cfg *config.Config) bus.EmbeddedOptions {
+	e := cfg.Output.NATS.Embedded
+	return bus.EmbeddedOptions{Host: e.Host, Port: e.Port, StoreDir: cfg.StatePath("jetstream"),
+		User: e.User, Password: e.Password.Value(), NKey: e.NKey}
+}
+
+// connectOptions are how tallyd logs in to the NATS server: the external
+// server's auth and TLS, or the embedded server's own login.
+func connectOptions(cfg *config.Config, external bool) []bus.Option {
+	n := cfg.Output.NATS
+	if !external {
+		if e := n.Embedded; e.User != "" {
+			return []bus.Option{bus.UserPassword(e.User, e.Password.Value())}
+		}
+		return nil
+	}
+	var opts []bus.Option
+	a := n.Auth
+	switch {
+	case a.User != "":
+		opts = append(opts, bus.UserPassword(a.User, a.Password.Value()))
+	case a.Token != "":
+		opts = append(opts, bus.Token(a.Token.Value()))
+	case a.NKeySeed != "":
+		opts = append(opts, bus.NKeySeedFile(cfg.Resolve(a.NKeySeed)))
+	case a.Creds != "":
+		opts = append(opts, bus.CredsFile(cfg.Resolve(a.Creds)))
+	}
+	if t := n.TLS; t.CA != "" || t.Cert != "" {
+		opts = append(opts, bus.TLSFiles(cfg.Resolve(t.CA), cfg.Resolve(t.Cert), cfg.Resolve(t.Key)))
+	}
+	return opts
+}
+
+// streamSettings is the site's JetStream stream.
+func streamSettings(cfg *config.Config) bus.StreamSettings {
+	j := cfg.Output.NATS.JetStream
+	return bus.StreamSettings{Site: cfg.Site, Prefix: cfg.Output.NATS.Prefix, MaxAge: j.MaxAge.Duration,
+		MaxBytes: j.MaxBytes, Duplicates: j.DuplicateWindow.Duration, Replicas: j.Replicas}
+}
+
+// bucketName is the key-value bucket of the site's live state.
+func bucketName(cfg *config.Config) string {
+	if b := cfg.Output.NATS.JetStream.Bucket; b != "" {
+		return b
+	}
+	return "tallyd-" + cfg.Site
+}
+
+// intervalConfig is the interval totals every rule engine reports.
+func intervalConfig(cfg *config.Config) events.IntervalConfig {
+	return events.IntervalConfig{Every: cfg.Intervals.Every.Duration, Zone: cfg.Intervals.Location()}
+}
+
+// newRunID names one run of the daemon in live sources' event ids: its start
+// time and random bits, so ids never repeat across restarts.
+func newRunID(start time.Time) string {
+	var b [6]byte
+	_, _ = rand.Read(b[:])
+	return fmt.Sprintf("%x-%x", start.UnixMilli(), b)
 }

@@ -30,6 +30,8 @@ type sourceRun struct {
 	count  counters
 	// lostConn is the last connection the capture worker reported lost.
 	lostConn atomic.Int64
+	// restore is the saved rule state a live source continues from.
+	restore map[string]events.RuleState
 }
 
 // sourceSettings are a source's settings from the site file, in stage form.
@@ -80,7 +82,17 @@ func (sr *sourceRun) setupRules(p *Pipeline, w, h int) {
 	if g := sr.set.gate; g != nil {
 		st.gate = motion.NewGate(*g, w, h, gateRegion(st.lines, st.zones))
 	}
-	st.engine = events.NewEngine(events.Meta{Site: p.cfg.Site, Source: sr.id, Start: sr.set.start}, st.lines, st.zones)
+	meta := events.Meta{Site: p.cfg.Site, Source: sr.id, Start: sr.set.start}
+	if sr.set.live {
+		meta.Run = p.run
+	}
+	restore := sr.restore
+	if st.engine != nil { // a new frame size: the counts so far carry over
+		restore = st.engine.State(sr.cursor.pts)
+	}
+	st.engine = events.NewEngine(meta, st.lines, st.zones)
+	st.engine.SetIntervals(intervalConfig(p.cfg))
+	st.engine.Restore(restore)
 }
 
 // admit says why a frame is not worth detecting ("" when it is).

@@ -22,13 +22,12 @@ type SourceStatus struct {
 	Read      int64
 	Processed int64
 	Dropped   Drops
-	// Events counts events every publisher accepted; EventsFailed events at
-	// least one publisher refused.
-	Events       int64
-	EventsFailed int64
-	AgeP50ms     float64       // frame age at the end of publishing, recent frames
-	AgeP99ms     float64       //
-	DetectTime   time.Duration // total time in Detect attributed to this source
+	// Events counts the events the source's rules produced (delivery is
+	// counted for all sources together: Pipeline.Delivery).
+	Events     int64
+	AgeP50ms   float64       // frame age at the end of publishing, recent frames
+	AgeP99ms   float64       //
+	DetectTime time.Duration // total time in Detect attributed to this source
 	// EndedEarly: a recording that ended before the length its container
 	// declares (Declared frames).
 	EndedEarly bool
@@ -43,7 +42,7 @@ func (p *Pipeline) Status() []SourceStatus {
 		p50, p99 := sr.count.ages.percentiles()
 		out = append(out, SourceStatus{ID: sr.id, State: st.State, Err: st.Err, Read: st.Read,
 			Processed: sr.count.processed.Load(), Dropped: sr.count.drops(st),
-			Events: sr.count.events.Load(), EventsFailed: sr.count.eventsFailed.Load(),
+			Events:   sr.count.events.Load(),
 			AgeP50ms: p50, AgeP99ms: p99, DetectTime: time.Duration(sr.count.detectNanos.Load()),
 			EndedEarly: st.EndedEarly, Declared: st.Declared})
 	}
@@ -55,7 +54,7 @@ func (s SourceStatus) logAttrs() []any {
 	a := []any{"source", s.ID, "state", s.State, "read", s.Read, "processed", s.Processed,
 		"dropped_rate", s.Dropped.ForRate, "dropped_mailbox", s.Dropped.Mailbox, "dropped_prepare", s.Dropped.Prep,
 		"dropped_too_old", s.Dropped.TooOld, "gated", s.Dropped.Gated,
-		"events", s.Events, "events_failed", s.EventsFailed,
+		"events", s.Events,
 		"age_p50_ms", round1(s.AgeP50ms), "age_p99_ms", round1(s.AgeP99ms)}
 	if s.Err != "" {
 		a = append(a, "err", s.Err)
@@ -72,8 +71,8 @@ type Summary struct {
 	FramesProcessed int64 `json:"frames_processed"`
 	FramesDropped   int64 `json:"frames_dropped"`
 	Dropped         Drops `json:"dropped"`
-	EventsPublished int64 `json:"events_published"`
-	EventsFailed    int64 `json:"events_failed"`
+	// Events counts the events produced and what became of them.
+	Events DeliveryStats `json:"events"`
 	// Interrupted: stopped (a signal, a deadline) before every recorded
 	// source reached its end; the counts cover only what was read.
 	Interrupted bool `json:"interrupted"`
@@ -87,9 +86,11 @@ type Summary struct {
 
 // Summary totals frames, events and rule counts over all sources. Call it
 // after Run.
+//
+// Delivered is when every event reached the stream (or the NATS server) and
+// the JSON-lines file: nothing pending, dropped or failed.
 func (p *Pipeline) Summary() Summary {
-	s := Summary{Rules: map[string]events.Totals{}, EventsPublished: p.published.Load(),
-		EventsFailed: p.failed.Load(), Interrupted: p.interrupted.Load(), Truth: p.Truth()}
+	s := Summary{Rules: map[string]events.Totals{}, Events: p.out.stats(), Interrupted: p.interrupted.Load(), Truth: p.Truth()}
 	for i, st := range p.Status() {
 		sr := p.sources[i]
 		s.FramesRead += st.Read
@@ -155,3 +156,16 @@ func SceneTruth(s *scene.Scene, lines []events.LineRule, zones []events.ZoneRule
 	}
 	return events.TruthTotals(lines, zones, frames)
 }
+
+// Delivered reports whether every event produced reached every sink.
+func (s Summary) Delivered() bool {
+	e := s.Events
+	ok := e.Pending == 0 && e.Dropped == 0
+	if j := e.JSONL; j != nil {
+		ok = ok && j.Dropped == 0 && j.Failed == 0
+	}
+	return ok
+}
+
+// Delivery is the delivery's counters now; safe while Run runs.
+func (p *Pipeline) Delivery() DeliveryStats { return p.out.stats() }
