@@ -150,7 +150,7 @@ func (v *validator) delivery() {
 	for _, f := range []struct{ key, path string }{{"auth.nkey_seed", a.NKeySeed}, {"auth.creds", a.Creds},
 		{"tls.ca", n.TLS.CA}, {"tls.cert", n.TLS.Cert}, {"tls.key", n.TLS.Key}} {
 		if f.path != "" {
-			v.onnxFile(p+f.key, f.path, "a file")
+			v.file(p+f.key, f.path, "a file")
 		}
 	}
 	if (n.TLS.Cert == "") != (n.TLS.Key == "") {

@@ -81,15 +81,15 @@ func (v *validator) onnx() {
 	if o.Model == "" {
 		v.fail(p+"model", "is required")
 	} else {
-		v.onnxFile(p+"model", o.Model, "an ONNX model")
+		v.file(p+"model", o.Model, "an ONNX model")
 	}
 	if o.Names != "" {
-		v.onnxFile(p+"names", o.Names, "a class names file")
+		v.file(p+"names", o.Names, "a class names file")
 	}
 	switch o.Engine {
 	case onnx.EngineORT:
 		if o.Library != "" {
-			v.onnxFile(p+"library", o.Library, "the ONNX Runtime shared library")
+			v.file(p+"library", o.Library, "the ONNX Runtime shared library")
 		}
 	case onnx.EngineOpenCV:
 	default:
@@ -180,8 +180,8 @@ func (v *validator) onnx() {
 	}
 }
 
-// onnxFile checks that a path from the site file names a readable file.
-func (v *validator) onnxFile(path, p, what string) {
+// file checks that a path from the site file names a readable file.
+func (v *validator) file(path, p, what string) {
 	if !v.pathLen(path, p) {
 		return
 	}

@@ -6,7 +6,6 @@ import (
 
 	"tallyd/capture"
 	"tallyd/detect"
-	"tallyd/events"
 	"tallyd/track"
 )
 
@@ -44,9 +43,4 @@ type (
 // Tracker links one source's detections over time.
 type Tracker interface {
 	Update(ts time.Duration, dets []detect.Detection) track.Result
-}
-
-// Publisher delivers events somewhere (NATS, a file).
-type Publisher interface {
-	Publish(ctx context.Context, ev events.Event) error
 }

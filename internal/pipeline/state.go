@@ -32,10 +32,9 @@ type stateSink struct {
 	period time.Duration
 	fails  *repeat.Reporter
 
-	mu      sync.Mutex
-	latest  map[string]events.RuleState // <source>.<rule> -> state
-	dirty   map[string]bool
-	written int64
+	mu     sync.Mutex
+	latest map[string]events.RuleState // <source>.<rule> -> state
+	dirty  map[string]bool
 }
 
 // statePeriod is how often the live state is written at most.
@@ -117,11 +116,7 @@ func (s *stateSink) flush() {
 	}
 	if err := errors.Join(errs...); err != nil {
 		s.fails.Note(err)
-		return
 	}
-	s.mu.Lock()
-	s.written++
-	s.mu.Unlock()
 }
 
 // writeStateFile replaces the local copy atomically.

@@ -166,6 +166,3 @@ func (s Summary) Delivered() bool {
 	}
 	return ok
 }
-
-// Delivery is the delivery's counters now; safe while Run runs.
-func (p *Pipeline) Delivery() DeliveryStats { return p.out.stats() }
