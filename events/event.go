@@ -31,6 +31,9 @@ const (
 	KindDwell Kind = "dwell" // track stayed inside a zone for the rule's threshold
 	// KindTotals is a rule's counts over one interval (see IntervalConfig).
 	KindTotals Kind = "totals"
+	// KindReset says a rule starts counting from 0: it is new, or its
+	// definition changed at a reload (Data.Reason says which).
+	KindReset Kind = "reset"
 )
 
 // Event types (the CloudEvents "type" attribute).
@@ -42,6 +45,7 @@ const (
 	TypeZoneDwell  = "tallyd.zone.dwell"
 	TypeLineTotals = "tallyd.line.totals"
 	TypeZoneTotals = "tallyd.zone.totals"
+	TypeRuleReset  = "tallyd.rule.reset"
 )
 
 // Reason says why a zone stay was closed by something other than the track
@@ -53,6 +57,10 @@ const (
 	ReasonTrackEnded Reason = "track_ended" // the tracker dropped the track while inside
 	ReasonStreamEnd  Reason = "stream_end"  // the source reached its end
 	ReasonSourceLost Reason = "source_lost" // the source went away
+	// Reload reasons: an exit closed because its zone changed or went, and
+	// a reset event's cause.
+	ReasonRuleChanged Reason = "rule_changed"
+	ReasonRuleNew     Reason = "rule_new"
 )
 
 // typeOfKind maps each kind of a single event to its CloudEvents type.
@@ -68,6 +76,7 @@ var typeOfKind = map[Kind]string{
 var kindOfType = map[string]Kind{
 	TypeLineIn: KindIn, TypeLineOut: KindOut, TypeZoneEnter: KindEnter, TypeZoneExit: KindExit,
 	TypeZoneDwell: KindDwell, TypeLineTotals: KindTotals, TypeZoneTotals: KindTotals,
+	TypeRuleReset: KindReset,
 }
 
 // Event is one counting event in CloudEvents 1.0 structured-mode JSON.

@@ -142,6 +142,15 @@ func (e *Engine) Totals() map[string]Totals {
 	return m
 }
 
+// Occupancy returns each zone's tracks inside now, keyed by rule name.
+func (e *Engine) Occupancy() map[string]int {
+	m := make(map[string]int, len(e.zones))
+	for _, z := range e.zones {
+		m[z.rule.Name] = z.occupancy
+	}
+	return m
+}
+
 // event builds one event of the engine's source.
 func (e *Engine) event(rule string, kind Kind, tr track.Track, frame int64, ts time.Duration) Event {
 	b := tr.Box

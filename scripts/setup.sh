@@ -7,7 +7,10 @@ cd "$(dirname "$0")/.."
 ORT_VERSION=1.24.1
 ORT_CACHE=".cache/onnxruntime/${ORT_VERSION}"
 ORT_MEMBER="package/bin/napi-v6/linux/x64/libonnxruntime.so.1"
-DEB_PACKAGES=(libopencv-dev pkg-config g++)
+# libavcodec-dev and libswscale-dev (libx264 inside) come with libopencv-dev
+# already; named here because the H.264 test camera (capture/testsrv/h264enc)
+# builds against them.
+DEB_PACKAGES=(libopencv-dev libavcodec-dev libswscale-dev pkg-config g++)
 
 say() { printf 'setup: %s\n' "$*"; }
 
@@ -26,6 +29,19 @@ if [ ${#missing[@]} -gt 0 ]; then
   say "installing ${missing[*]}"
   apt-get update -qq
   DEBIAN_FRONTEND=noninteractive apt-get install -y -qq --no-install-recommends "${missing[@]}" >/dev/null
+fi
+
+# 1b. Chromium, for the headless browser test of the page (internal/web). The
+# test skips without it, so a run that is not root only says how to add it.
+if ! command -v chromium >/dev/null && ! command -v chromium-browser >/dev/null; then
+  if [ "$(id -u)" -ne 0 ]; then
+    say "chromium is missing: the browser test of the page will skip"
+    say "run as root: apt-get update && DEBIAN_FRONTEND=noninteractive apt-get install -y --no-install-recommends chromium"
+  else
+    say "installing chromium (browser test of the page)"
+    apt-get update -qq
+    DEBIAN_FRONTEND=noninteractive apt-get install -y -qq --no-install-recommends chromium >/dev/null
+  fi
 fi
 
 # 2. ONNX Runtime shared library (CPU), unless TALLYD_ORT_LIB names one.

@@ -1,6 +1,7 @@
 package track
 
 import (
+	"math"
 	"slices"
 	"time"
 
@@ -41,19 +42,27 @@ import (
 //  6. A confirmed track left unmatched is lost: Misses grows, its filter
 //     keeps predicting it (its size no longer changes) and it can be found
 //     again in step 2 or 3 under the same ID. Once the frame's time is more
-//     than LostTTL after its last matched detection it is removed and
+//     than LostTTL after its last matched detection, or more than
+//     LostFrames frames of the source have passed since (the frame interval
+//     is the median step between recent updates), it is removed and
 //     reported once in Result.Ended with its last matched box and time;
 //     until then it is listed in Result.Lost, its prediction in Estimate.
 //  7. Birth. Each high detection left unmatched that scores at least
 //     NewTrackScore starts a tentative track with one hit (confirmed at once
-//     with BirthHits 1).
+//     with BirthHits 1). Only high detections can: a detection that only
+//     extends tracks (step 3) never starts one.
+//
+// HighScore and NewTrackScore are those of the configuration, or, with
+// ScoresWarmup, quantiles of the scores seen so far (see ScoreCalibration);
+// Thresholds reports the ones in use. A track confirmed after more than one
+// match lists its earlier boxes in Result.Born.
 //
 // IDs are taken on confirmation, as with IoU: dense (1, 2, 3, …) in
 // confirmation order (tracks confirmed in the same frame in birth order),
 // never reused. Result.Active holds the confirmed tracks matched in this
 // frame, ordered by ID, each with the matched detection's box in Box (what
-// the detector saw, the same box an evaluation tool scores) and the filter's
-// corrected box in Estimate; lost tracks are in Result.Lost, never in
+// the detector saw, what the rules test) and the filter's corrected box in
+// Estimate (what a tracks file holds by default, see Output); lost tracks are in Result.Lost, never in
 // Active. The result depends only on the input.
 //
 // The tracker differs from the paper's reference code in small ways:
@@ -67,6 +76,8 @@ import (
 // timestamps.
 type ByteTrack struct {
 	cfg       ByteTrackConfig
+	th        thresholds   // HighScore and NewTrackScore as used now
+	steps     frameSteps   // the source's frame interval
 	confirmed []*byteTrack // ordered by ID, lost ones included
 	tentative []*byteTrack // ordered by birth
 	lastID    int64
@@ -85,6 +96,7 @@ type ByteTrack struct {
 
 type byteTrack struct {
 	Track
+	early []detect.Box // while tentative: detection and filtered box of each match, in pairs
 	kf    kalman
 	at    time.Duration  // the time the filter state refers to
 	votes map[string]int // matched frames per class; nil until a second class is seen
@@ -97,14 +109,22 @@ func NewByteTrack(cfg ByteTrackConfig) *ByteTrack {
 	if err := cfg.Validate(); err != nil {
 		panic("track: NewByteTrack: " + err.Error())
 	}
-	return &ByteTrack{cfg: cfg}
+	return &ByteTrack{cfg: cfg, th: newThresholds(cfg)}
 }
+
+// Thresholds returns the high and new-track score thresholds in use: the
+// configured ones, or those the warm-up derived so far.
+func (t *ByteTrack) Thresholds() (high, newTrack float64) { return t.th.high, t.th.newTrack }
 
 // Update consumes the detections of one frame taken at source time ts and
 // returns the confirmed tracks matched in it and those that ended with it.
 // The returned slices belong to the caller.
 func (t *ByteTrack) Update(ts time.Duration, dets []detect.Detection) Result {
 	nc := len(t.confirmed)
+	t.steps.observe(ts)
+	if t.th.warming {
+		t.th.observe(&t.cfg, dets)
+	}
 	t.order = append(append(t.order[:0], t.confirmed...), t.tentative...)
 	t.predict(ts)
 	t.associate(dets)
@@ -126,7 +146,7 @@ func (t *ByteTrack) Update(ts time.Duration, dets []detect.Detection) Result {
 		if tr.Misses == 1 {
 			tr.kf.stopSize()
 		}
-		if ts-tr.LastSeen > t.cfg.LostTTL {
+		if t.expired(tr, ts) {
 			res.Ended = append(res.Ended, tr.Track)
 			continue
 		}
@@ -142,11 +162,15 @@ func (t *ByteTrack) Update(ts time.Duration, dets []detect.Detection) Result {
 		if di < 0 {
 			continue // a miss before confirmation ends a tentative track
 		}
+		before := tr.early
 		t.hit(tr, ts, dets[di])
 		if t.tryConfirm(tr) {
 			res.Active = append(res.Active, tr.Track)
+			res.Born = append(res.Born, birth(tr.ID, before))
+			tr.early = nil
 			continue
 		}
+		tr.early = append(tr.early, tr.Box, tr.Estimate)
 		stillTentative = append(stillTentative, tr)
 	}
 	clear(t.tentative[len(stillTentative):])
@@ -154,7 +178,7 @@ func (t *ByteTrack) Update(ts time.Duration, dets []detect.Detection) Result {
 
 	for _, di := range t.high {
 		d := &dets[di]
-		if t.used[di] || !(d.Score >= t.cfg.NewTrackScore) {
+		if t.used[di] || !(d.Score >= t.th.newTrack) {
 			continue
 		}
 		tr := &byteTrack{
@@ -167,6 +191,8 @@ func (t *ByteTrack) Update(ts time.Duration, dets []detect.Detection) Result {
 			res.Active = append(res.Active, tr.Track)
 			continue
 		}
+		tr.early = make([]detect.Box, 0, 2*(t.cfg.BirthHits-1))
+		tr.early = append(tr.early, tr.Box, tr.Estimate)
 		t.tentative = append(t.tentative, tr)
 	}
 	clear(t.order) // drop references to removed tracks
@@ -187,6 +213,20 @@ func (t *ByteTrack) Flush() []Track {
 	return out
 }
 
+// expired reports whether the lost track tr has waited too long at time
+// ts: more than LostTTL, or more than LostFrames frames of the source.
+func (t *ByteTrack) expired(tr *byteTrack, ts time.Duration) bool {
+	since := ts - tr.LastSeen
+	if since > t.cfg.LostTTL {
+		return true
+	}
+	frames := tr.Misses
+	if step := t.steps.interval(); step > 0 {
+		frames = max(frames, int(math.Round(float64(since)/float64(step))))
+	}
+	return frames > t.cfg.LostFrames
+}
+
 // predict moves every track's filter to time ts and fills t.pred.
 func (t *ByteTrack) predict(ts time.Duration) {
 	t.pred = t.pred[:0]
@@ -205,7 +245,7 @@ func (t *ByteTrack) associate(dets []detect.Detection) {
 	t.high, t.low = t.high[:0], t.low[:0]
 	for i := range dets {
 		switch s := dets[i].Score; {
-		case s >= t.cfg.HighScore:
+		case s >= t.th.high:
 			t.high = append(t.high, i)
 		case s >= t.cfg.LowScore:
 			t.low = append(t.low, i)
@@ -273,6 +313,16 @@ func (t *ByteTrack) link(dets []detect.Detection, rows, cols []int, minIoU float
 			t.used[di] = true
 		}
 	}
+}
+
+// birth splits a tentative track's early pairs of boxes into a Birth.
+func birth(id int64, early []detect.Box) Birth {
+	b := Birth{ID: id, Boxes: make([]detect.Box, 0, len(early)/2), Estimates: make([]detect.Box, 0, len(early)/2)}
+	for i := 0; i+1 < len(early); i += 2 {
+		b.Boxes = append(b.Boxes, early[i])
+		b.Estimates = append(b.Estimates, early[i+1])
+	}
+	return b
 }
 
 // hit records a matched detection.

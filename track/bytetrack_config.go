@@ -30,9 +30,18 @@ type ByteTrackConfig struct {
 	// LostTTL is how long a confirmed track is kept, predicted, after its last
 	// matched detection: it can be found again under the same ID until then,
 	// and ends on the first frame more than LostTTL after that detection.
-	// 0 ends it on its first miss. It is time, not frames, so it means the
-	// same at any frame rate and across dropped frames.
+	// 0 ends it on its first miss.
 	LostTTL time.Duration
+	// LostFrames bounds the same wait in frames of the source: a lost track
+	// also ends once more than LostFrames frames have passed since its last
+	// matched detection, whichever of the two limits is stricter at the
+	// source's frame rate. Frames are counted on the source clock (the time
+	// since the last match over the source's frame interval, the median of
+	// recent steps between updates), so dropped frames still count.
+	LostFrames int
+	// Scores says how HighScore and NewTrackScore are chosen: as written
+	// (ScoresFixed) or from the scores seen over a warm-up (ScoresWarmup).
+	Scores ScoreCalibration
 	// PerClass links detections only to tracks of the same class.
 	PerClass bool
 	// Motion tunes the Kalman filter that predicts where each track is.
@@ -42,12 +51,21 @@ type ByteTrackConfig struct {
 // Default ByteTrack settings. The score thresholds and IoU gates are those of
 // the paper's reference code (yolox/tracker/byte_tracker.py: track_thresh
 // 0.5, low scores above 0.1, new tracks from track_thresh + 0.1, IoU
-// distance gates 0.8 for the first association and 0.5 for the second);
-// LostTTL is its track_buffer of 30 frames at 30 frames/s; a track is
+// distance gates 0.8 for the first association and 0.5 for the second):
+// they suit a detector whose scores are calibrated like YOLOX's, and
+// ScoresWarmup replaces the two score thresholds for any other. A track is
 // confirmed on its second consecutive match, as there. The gate for low
 // detections is the stricter one: they are less reliable, and a looser gate
 // (IoU 0.1 or 0.2) switched more identities in the fault study
 // (track/eval/faults_test.go).
+//
+// A lost track waits at most DefaultLostTTL and DefaultLostFrames, whichever
+// is stricter: the paper's track_buffer is 30 frames at 30 frames/s, one
+// second; at low frame rates a second is only a few frames but the object
+// moves farther per frame, so the prediction drifts off sooner in frames
+// than in time, while at high frame rates a second bounds how long a
+// stopped-looking prediction can sit in someone else's path. The values
+// are those measured best across 7 to 30 frames/s (README, "Tracking").
 const (
 	DefaultHighScore          = 0.5
 	DefaultLowScore           = 0.1
@@ -56,6 +74,7 @@ const (
 	DefaultLowMatchIoU        = 0.5
 	DefaultByteTrackBirthHits = 2
 	DefaultLostTTL            = time.Second
+	DefaultLostFrames         = 15
 )
 
 // DefaultByteTrackConfig returns the default ByteTrack settings.
@@ -68,6 +87,8 @@ func DefaultByteTrackConfig() ByteTrackConfig {
 		LowMatchIoU:   DefaultLowMatchIoU,
 		BirthHits:     DefaultByteTrackBirthHits,
 		LostTTL:       DefaultLostTTL,
+		LostFrames:    DefaultLostFrames,
+		Scores:        DefaultScoreCalibration(),
 		Motion:        DefaultMotionConfig(),
 	}
 }
@@ -113,5 +134,9 @@ func (c ByteTrackConfig) problems(prefix string) []error {
 	if c.LostTTL < 0 {
 		fail("lost_ttl", "must not be negative (found %v)", c.LostTTL)
 	}
+	if c.LostFrames < 0 || c.LostFrames > MaxLostFrames {
+		fail("lost_frames", "must be within [0, %d] (found %d)", MaxLostFrames, c.LostFrames)
+	}
+	errs = append(errs, c.Scores.problems(prefix+"scores.")...)
 	return append(errs, c.Motion.problems(prefix+"motion.")...)
 }

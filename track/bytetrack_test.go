@@ -310,16 +310,28 @@ func TestByteTrackConfigValidate(t *testing.T) {
 	}{
 		{"defaults", c(), ""},
 		{"edges", ByteTrackConfig{HighScore: 1, LowScore: 0, NewTrackScore: 1, MatchIoU: 0, LowMatchIoU: 0.999,
-			BirthHits: 1, LostTTL: 0, Motion: MotionConfig{MeasurementNoise: 1e-9}}, ""},
+			BirthHits: 1, LostTTL: 0, LostFrames: 0, Scores: ScoreCalibration{Mode: ScoresWarmup, WarmupDetections: 1, HighQuantile: 1, NewQuantile: 1},
+			Motion: MotionConfig{MeasurementNoise: 1e-9}}, ""},
 		{"high equals low", with(func(c *ByteTrackConfig) { c.HighScore, c.LowScore, c.NewTrackScore = 0.4, 0.4, 0.4 }), ""},
 		{"zero value", ByteTrackConfig{}, "high_score: must be within (0, 1] (found 0)\n" +
 			"birth_hits: must be at least 1 (found 0)\n" +
+			"scores.mode: want auto, fixed, warmup (found \"\")\n" +
+			"scores.warmup_detections: must be within [1, 100000] (found 0)\n" +
 			"motion.measurement_noise: must be above 0 and finite (found 0)"},
 		{"high below low", with(func(c *ByteTrackConfig) { c.HighScore = 0.05 }),
 			"high_score: must not be below low_score 0.1 (found 0.05)"},
 		{"new track below high", with(func(c *ByteTrackConfig) { c.NewTrackScore = 0.4 }),
 			"new_track_score: must not be below high_score 0.5 (found 0.4)"},
 		{"match_iou 1", with(func(c *ByteTrackConfig) { c.MatchIoU = 1 }), "match_iou: must be within [0, 1) (found 1)"},
+		{"lost_frames", with(func(c *ByteTrackConfig) { c.LostFrames = -1 }), "lost_frames: must be within [0, 108000] (found -1)"},
+		{"quantiles", with(func(c *ByteTrackConfig) { c.Scores.HighQuantile, c.Scores.NewQuantile = 0.5, 0.4 }),
+			"scores.new_quantile: must not be below high_quantile 0.5 (found 0.4)"},
+		{"quantiles out of range", with(func(c *ByteTrackConfig) {
+			c.Scores.Mode, c.Scores.WarmupDetections, c.Scores.HighQuantile, c.Scores.NewQuantile = "median", 100001, -1, nan()
+		}), "scores.mode: want auto, fixed, warmup (found \"median\")\n" +
+			"scores.warmup_detections: must be within [1, 100000] (found 100001)\n" +
+			"scores.high_quantile: must be within [0, 1] (found -1)\n" +
+			"scores.new_quantile: must be within [0, 1] (found NaN)"},
 		{"NaN everywhere", with(func(c *ByteTrackConfig) {
 			c.HighScore, c.LowScore, c.NewTrackScore, c.MatchIoU, c.LowMatchIoU = nan(), nan(), nan(), nan(), nan()
 		}), "low_score: must be within [0, 1] (found NaN)\n" +
@@ -336,6 +348,8 @@ func TestByteTrackConfigValidate(t *testing.T) {
 				"low_match_iou: must be within [0, 1) (found 1.1)\n" +
 				"birth_hits: must be at least 1 (found -2)\n" +
 				"lost_ttl: must not be negative (found -1s)\n" +
+				"scores.mode: want auto, fixed, warmup (found \"\")\n" +
+				"scores.warmup_detections: must be within [1, 100000] (found 0)\n" +
 				"motion.measurement_noise: must be above 0 and finite (found NaN)\n" +
 				"motion.acceleration: must be finite and not negative (found NaN)\n" +
 				"motion.size_acceleration: must be finite and not negative (found -1)"},

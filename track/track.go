@@ -90,4 +90,17 @@ type Result struct {
 	// display draws, or what a track file holds through a short gap. The
 	// IoU tracker, which has no prediction, leaves it nil.
 	Lost []Track
+	// Born holds, for each track confirmed in this frame after more than
+	// one matched frame, where it was in the updates before (ByteTrack
+	// only): what a tracks file may add once the track is known to be real.
+	Born []Birth
+}
+
+// Birth is where a track was seen in the updates before the one that
+// confirmed it, oldest first, one entry per update (a tentative track is
+// matched in every update until confirmed).
+type Birth struct {
+	ID        int64
+	Boxes     []detect.Box // the matched detections
+	Estimates []detect.Box // the motion model's boxes after each
 }

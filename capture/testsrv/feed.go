@@ -11,6 +11,9 @@ import (
 type feed struct {
 	frames Frames
 	period time.Duration
+	// noRepeat: after the last frame send nothing (a coded stream cannot
+	// repeat a picture by resending it); otherwise repeat the last one.
+	noRepeat bool
 
 	mu      sync.Mutex
 	subs    map[*sub]struct{}
@@ -22,19 +25,19 @@ type feed struct {
 	wg   sync.WaitGroup
 }
 
-// sub receives a feed's frames; a slow one sees only the newest.
+// sub receives a feed's frames; a slow one loses the oldest.
 type sub struct{ ch chan frameMsg }
 
 type frameMsg struct {
 	i    int
-	jpeg []byte
+	data []byte
 }
 
-func newFeed(frames Frames, fps float64) *feed {
+func newFeed(frames Frames, fps float64, noRepeat bool) *feed {
 	if fps <= 0 {
 		fps = 25
 	}
-	f := &feed{frames: frames, period: time.Duration(float64(time.Second) / fps),
+	f := &feed{frames: frames, period: time.Duration(float64(time.Second) / fps), noRepeat: noRepeat,
 		subs: map[*sub]struct{}{}, quit: make(chan struct{})}
 	f.wg.Add(1)
 	go f.run()
@@ -61,25 +64,28 @@ func (f *feed) run() {
 		f.mu.Unlock()
 		data := f.frames(i)
 		f.mu.Lock()
-		if data == nil {
+		if data == nil && !f.noRepeat {
 			data = f.last
 		}
 		f.last = data
 		if data != nil {
 			for s := range f.subs {
-				select { // newest wins
-				case <-s.ch:
-				default:
+				if len(s.ch) == cap(s.ch) { // drop the oldest
+					select {
+					case <-s.ch:
+					default:
+					}
 				}
-				s.ch <- frameMsg{i: i, jpeg: data}
+				s.ch <- frameMsg{i: i, data: data}
 			}
 		}
 		f.mu.Unlock()
 	}
 }
 
-func (f *feed) subscribe() *sub {
-	s := &sub{ch: make(chan frameMsg, 1)}
+// subscribe adds a receiver that may fall queue frames behind (at least 1).
+func (f *feed) subscribe(queue int) *sub {
+	s := &sub{ch: make(chan frameMsg, max(queue, 1))}
 	f.mu.Lock()
 	f.subs[s] = struct{}{}
 	f.mu.Unlock()

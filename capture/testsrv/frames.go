@@ -1,5 +1,5 @@
 // Package testsrv runs video servers on the loopback interface for tests:
-// an RTSP server sending Motion-JPEG over RTP (TCP or UDP), an HTTP
+// an RTSP server sending Motion-JPEG or H.264 over RTP (TCP or UDP), an HTTP
 // Motion-JPEG server, a server that accepts and stays silent, and a web page
 // server. Each picks a free port, can be stopped and restarted on the same
 // port, and stops by itself at the end of the test.

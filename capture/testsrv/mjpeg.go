@@ -59,7 +59,7 @@ func (s *MJPEGServer) serve(c net.Conn) {
 		writeResponse(c, 404, "Not Found", "text/plain", nil, "no such stream\n")
 		return
 	}
-	sb := s.feed.subscribe()
+	sb := s.feed.subscribe(1)
 	defer s.feed.unsubscribe(sb)
 	// A closed connection ends the wait below: watch for it.
 	gone := make(chan struct{})
@@ -84,10 +84,10 @@ func (s *MJPEGServer) serve(c net.Conn) {
 			}
 			headerSent = true
 		}
-		if _, err := fmt.Fprintf(c, "--%s\r\nContent-Type: image/jpeg\r\nContent-Length: %d\r\n\r\n", boundary, len(m.jpeg)); err != nil {
+		if _, err := fmt.Fprintf(c, "--%s\r\nContent-Type: image/jpeg\r\nContent-Length: %d\r\n\r\n", boundary, len(m.data)); err != nil {
 			return
 		}
-		if _, err := c.Write(append(m.jpeg, '\r', '\n')); err != nil {
+		if _, err := c.Write(append(m.data, '\r', '\n')); err != nil {
 			return
 		}
 	}

@@ -27,12 +27,14 @@ type RTSPOptions struct {
 	Username, Password string
 }
 
-// RTSPServer is an RTSP 1.0 server (RFC 2326) with one Motion-JPEG video
-// track sent over RTP (RFC 3550, RFC 2435), interleaved in the RTSP
-// connection or over UDP, as the client asks.
+// RTSPServer is an RTSP 1.0 server (RFC 2326) with one video track sent
+// over RTP (RFC 3550), interleaved in the RTSP connection or over UDP, as
+// the client asks: Motion-JPEG (RFC 2435, StartRTSP) or H.264 (RFC 6184,
+// StartRTSPH264).
 type RTSPServer struct {
 	camera
-	opts RTSPOptions
+	opts  RTSPOptions
+	media media
 
 	sessionID atomic.Int64
 
@@ -50,9 +52,44 @@ func StartRTSP(t testing.TB, o RTSPOptions) *RTSPServer {
 	if o.Path == "" {
 		o.Path = "/live"
 	}
-	s := &RTSPServer{opts: o}
+	s := &RTSPServer{opts: o, media: jpegMedia{}}
 	s.start(t, "rtsp", o.Path, o.Frames, o.FPS, s.serve)
 	return s
+}
+
+// media is what an RTSP server sends: its session description and, per
+// session, a packetizer.
+type media interface {
+	// sdp is the media description: the m= line and its attributes.
+	sdp() string
+	// newPacketizer starts the RTP stream of one session.
+	newPacketizer() framePacketizer
+	// queue is how many frames a session may fall behind before the
+	// oldest are dropped (1: newest wins).
+	queue() int
+}
+
+// framePacketizer turns frame i's data into RTP packets with timestamp ts.
+type framePacketizer func(i int, data []byte, ts uint32) ([][]byte, error)
+
+// jpegMedia is Motion-JPEG, payload type 26 (RFC 2435).
+type jpegMedia struct{}
+
+func (jpegMedia) sdp() string {
+	return "m=video 0 RTP/AVP 26\r\na=rtpmap:26 JPEG/90000\r\na=control:trackID=0\r\n"
+}
+
+func (jpegMedia) queue() int { return 1 }
+
+func (jpegMedia) newPacketizer() framePacketizer {
+	p := &rtpPacketizer{seq: 1, ssrc: 0x7a11d, mtu: 1400}
+	return func(_ int, data []byte, ts uint32) ([][]byte, error) {
+		f, err := parseJPEG(data)
+		if err != nil {
+			return nil, err
+		}
+		return p.packets(f, ts), nil
+	}
 }
 
 // LastTransport is "tcp" or "udp": how the latest session asked for media.
@@ -150,8 +187,7 @@ func (rc *rtspConn) handle(line string, hdr textproto.MIMEHeader) bool {
 			rc.reply(hdr, 404, "Not Found", nil, "")
 			return true
 		}
-		sdp := "v=0\r\no=- 1 1 IN IP4 127.0.0.1\r\ns=testsrv\r\nc=IN IP4 0.0.0.0\r\nt=0 0\r\n" +
-			"m=video 0 RTP/AVP 26\r\na=rtpmap:26 JPEG/90000\r\na=control:trackID=0\r\n"
+		sdp := "v=0\r\no=- 1 1 IN IP4 127.0.0.1\r\ns=testsrv\r\nc=IN IP4 0.0.0.0\r\nt=0 0\r\n" + rc.s.media.sdp()
 		base := *u
 		base.User = nil
 		base.Path = o.Path + "/"
@@ -276,8 +312,8 @@ func (rc *rtspConn) play() {
 		return
 	}
 	rc.playing = true
-	sb := rc.s.feed.subscribe()
-	p := &rtpPacketizer{seq: 1, ssrc: 0x7a11d, mtu: 1400}
+	sb := rc.s.feed.subscribe(rc.s.media.queue())
+	packets := rc.s.media.newPacketizer()
 	period := rc.s.feed.period
 	rc.wg.Add(1)
 	go func() {
@@ -290,13 +326,13 @@ func (rc *rtspConn) play() {
 				return
 			case m = <-sb.ch:
 			}
-			f, err := parseJPEG(m.jpeg)
+			ts := uint32(int64(m.i) * int64(period) * 90000 / int64(time.Second))
+			pkts, err := packets(m.i, m.data, ts)
 			if err != nil {
 				rc.s.t.Errorf("testsrv: frame %d cannot be sent over RTP: %v", m.i, err)
 				return
 			}
-			ts := uint32(int64(m.i) * int64(period) * 90000 / int64(time.Second))
-			for _, pkt := range p.packets(f, ts) {
+			for _, pkt := range pkts {
 				if err := rc.send(pkt); err != nil {
 					_ = rc.c.Close() // the client is gone or stuck: end the connection
 					return

@@ -13,6 +13,7 @@ type camera struct {
 	t            testing.TB
 	scheme, path string
 	feed         *feed
+	noRepeat     bool // set before start: see feed.noRepeat
 	l            listener
 	closeOnce    sync.Once
 }
@@ -21,7 +22,7 @@ type camera struct {
 // stops when the test ends.
 func (c *camera) start(t testing.TB, scheme, path string, frames Frames, fps float64, serve func(net.Conn)) {
 	t.Helper()
-	c.t, c.scheme, c.path, c.feed = t, scheme, path, newFeed(frames, fps)
+	c.t, c.scheme, c.path, c.feed = t, scheme, path, newFeed(frames, fps, c.noRepeat)
 	c.l.serve = serve
 	c.l.start(t)
 	t.Cleanup(c.Close)

@@ -45,7 +45,38 @@ func cmdCheck(_ context.Context, args []string, stdout, _ io.Writer) error {
 		out = fmt.Sprintf("NATS at %s (reached: %s)", rep.NATS, rep.NATSReply)
 	}
 	fmt.Fprintf(stdout, "  events to %s, subjects %s.%s.<source>.<rule>.<kind>\n", out, n.Prefix, cfg.Site)
+	switch {
+	case rep.Capacity != nil:
+		printCapacity(stdout, *rep.Capacity)
+	case rep.CapacityErr != nil:
+		fmt.Fprintf(stdout, "  capacity: not measured (%v)\n", rep.CapacityErr)
+	}
 	return nil
+}
+
+// printCapacity prints what each source costs on this machine and how many
+// sources like it the machine holds.
+func printCapacity(w io.Writer, c pipeline.Capacity) {
+	fmt.Fprintf(w, "  capacity on this machine (%d cores, detect workers %d; CPU ms per frame measured just now):\n", c.Cores, c.Workers)
+	fmt.Fprintf(w, "    %-14s %-10s %8s %10s %10s %10s %8s\n", "source", "size", "fps", "decode ms", "detect ms", "CPU ms/s", "holds")
+	for _, s := range c.Sources {
+		dec := fmt.Sprintf("%.2f", s.DecodeMs)
+		if !s.DecodeMeasured {
+			dec = "?"
+		}
+		fps := fmt.Sprintf("%.4g", s.FPS)
+		if s.DetectFPS != s.FPS {
+			fps = fmt.Sprintf("%.4g/%.4g", s.DetectFPS, s.FPS)
+		}
+		fmt.Fprintf(w, "    %-14s %-10s %8s %10s %10.2f %10.0f %8d\n", s.ID, fmt.Sprintf("%dx%d", s.Width, s.Height),
+			fps, dec, s.DetectMs, s.DemandMs, s.Holds)
+	}
+	verdict := "fits"
+	if c.Exceeded() {
+		verdict = "EXCEEDS the estimate: expect dropped frames"
+	}
+	fmt.Fprintf(w, "    all sources need %.0f of %.0f CPU ms/s counted on (%.0f%%): %s\n", c.DemandMs, c.BudgetMs, 100*c.Load(), verdict)
+	fmt.Fprintln(w, "    (fps: detected/decoded per second; holds: sources like this one alone; 90% of the CPU counted on)")
 }
 
 // printONNX prints what tallyd read from the ONNX model: inputs, outputs, the

@@ -9,6 +9,7 @@
 //	tallyd totals -c site.yaml     the live totals and occupancy
 //	tallyd track ...               the tracker alone over a detections file
 //	tallyd score ...               tracking metrics against ground truth
+//	tallyd snapshot -c site.yaml   one frame with the rules, tracks and counts drawn
 package main
 
 import (
@@ -48,7 +49,9 @@ var commands = []command{
 	{"listen", "subscribe to tallyd events on NATS and print them", cmdListen},
 	{"totals", "print the live totals and occupancy of a site", cmdTotals},
 	{"track", "run the tracker alone over a detections file (MOTChallenge text format)", cmdTrack},
+	{"snapshot", "draw one frame of a source with its rules, tracks and counts", cmdSnapshot},
 	{"score", "score tracks against ground truth: CLEAR MOT, IDF1, HOTA", cmdScore},
+	{"models", "compare detector models on a source: speed, AP, count error; recommend one", cmdModels},
 }
 
 func main() {

@@ -7,8 +7,6 @@ import (
 	"io"
 	"log/slog"
 	"math"
-	"os"
-	"os/signal"
 	"strings"
 	"syscall"
 	"time"
@@ -36,9 +34,13 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 		return err
 	}
 	defer p.Close()
+	warnCapacity(ctx, p, log)
 	log.Info("running", "site", cfg.Site, "sources", len(cfg.Sources), "nats", bus.RedactURL(p.NATSURL()))
-	stopReopen := reopenOnSignal(p, log)
-	defer stopReopen()
+	stopOperator, err := startOperator(cfg, p, *cfgPath, log)
+	if err != nil {
+		return err
+	}
+	defer stopOperator()
 	start := time.Now()
 	runErr := p.Run(ctx)
 	s := p.Summary()
@@ -51,27 +53,25 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 	return outcome(runErr, s, false)
 }
 
-// reopenOnSignal reopens the JSON-lines file on SIGHUP or SIGUSR1 (log
-// rotation), until the returned func is called.
-func reopenOnSignal(p *pipeline.Pipeline, log *slog.Logger) func() {
-	ch := make(chan os.Signal, 1)
-	signal.Notify(ch, syscall.SIGHUP, syscall.SIGUSR1)
-	done := make(chan struct{})
-	go func() {
-		for {
-			select {
-			case <-done:
-				return
-			case sig := <-ch:
-				if err := p.ReopenFiles(); err != nil {
-					log.Error("reopening the events file failed", "signal", sig, "err", err)
-				} else {
-					log.Info("events file reopened", "signal", sig)
-				}
-			}
-		}
-	}()
-	return func() { signal.Stop(ch); close(done) }
+// warnCapacity measures what the sources cost on this machine (about a
+// second) and warns when they need more CPU than it has.
+func warnCapacity(ctx context.Context, p *pipeline.Pipeline, log *slog.Logger) {
+	c, err := p.EstimateCapacity(ctx)
+	if err != nil {
+		log.Warn("capacity not measured", "err", err)
+		return
+	}
+	attrs := []any{"cpu_ms_per_s_needed", math.Round(c.DemandMs), "cpu_ms_per_s_counted_on", math.Round(c.BudgetMs),
+		"load_percent", math.Round(100 * c.Load()), "cores", c.Cores, "detect_workers", c.Workers}
+	if !c.Exceeded() {
+		log.Info("capacity", attrs...)
+		return
+	}
+	for _, s := range c.Sources {
+		attrs = append(attrs, "source_"+s.ID, fmt.Sprintf("%.1f ms decode x %.4g fps + %.1f ms detect x %.4g fps",
+			s.DecodeMs, s.FPS, s.DetectMs, s.DetectFPS))
+	}
+	log.Warn("the sources need more CPU than this machine has: expect dropped frames (tallyd check shows the measurement)", attrs...)
 }
 
 func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) error {
@@ -81,8 +81,13 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	format := fs.String("summary", "table", "table: counts beside the truth when known; json: one JSON line last")
 	tracksOut := fs.String("tracks", "", "also write tracks in the MOTChallenge text format to this file (-<source> added with several sources)")
 	deliver := fs.Duration("deliver-timeout", 30*time.Second, "at the end, wait this long for every event to reach the stream (the rest stays in the outbox)")
+	annotate := fs.String("annotate", "", "also write the processed frames with boxes, ids, rules and counts to this .mp4 or .avi (-<source> added with several sources)")
+	progress := fs.String("progress", "auto", "auto: a progress bar when stderr is a terminal; on; off")
 	if err := parseFlags(fs, args); err != nil {
 		return err
+	}
+	if *progress != "auto" && *progress != "on" && *progress != "off" {
+		return usageErr("--progress: want auto, on or off (found %q)", *progress)
 	}
 	pace, err := capture.ParsePace(*paceName)
 	if err != nil {
@@ -96,16 +101,21 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		return err
 	}
 	log := newLogger(cfg, stderr)
-	p, err := pipeline.Build(cfg, pipeline.Options{Pace: pace, Log: log, TracksOut: *tracksOut, DeliverTimeout: *deliver})
+	p, err := pipeline.Build(cfg, pipeline.Options{Pace: pace, Log: log, TracksOut: *tracksOut, DeliverTimeout: *deliver, Annotate: *annotate})
 	if err != nil {
 		return err
 	}
 	defer p.Close()
-	stopReopen := reopenOnSignal(p, log)
-	defer stopReopen()
+	stopOperator, err := startOperator(cfg, p, *cfgPath, log)
+	if err != nil {
+		return err
+	}
+	defer stopOperator()
+	stopBar := showProgress(p, *progress, stderr)
 	start := time.Now()
 	runErr := p.Run(ctx)
 	elapsed := time.Since(start)
+	stopBar()
 	s := p.Summary()
 	if *format == "json" {
 		b, err := json.Marshal(s)
@@ -115,6 +125,9 @@ func cmdReplay(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		fmt.Fprintln(stdout, string(b))
 	} else {
 		printTable(stdout, s, elapsed)
+	}
+	for src, n := range p.AnnotatedFrames() {
+		log.Info("annotated video written", "source", src, "frames", n)
 	}
 	return outcome(runErr, s, true)
 }

@@ -1,4 +1,4 @@
-// A thin shim over cv::dnn::Net for ONNX models. gocv v0.31 does not catch
+// A thin shim over cv::dnn::Net for ONNX and Darknet models. gocv v0.31 does not catch
 // C++ exceptions, and OpenCV throws on models or inputs it cannot handle;
 // here every call catches them and returns the message instead.
 #include <cstdlib>
@@ -20,10 +20,14 @@ static void set_err(char** err, const char* msg) {
     if (err) *err = strdup(msg);
 }
 
-TallydDNN tallyd_dnn_open(const char* path, const char** out_names, int n_out, char** err) {
+TallydDNN tallyd_dnn_open(const char* path, const char* weights, const char** out_names, int n_out, char** err) {
     tallyd_dnn* h = new tallyd_dnn;
     try {
-        h->net = cv::dnn::readNetFromONNX(path);
+        if (weights && weights[0]) {
+            h->net = cv::dnn::readNetFromDarknet(path, weights);
+        } else {
+            h->net = cv::dnn::readNetFromONNX(path);
+        }
         if (h->net.empty()) {
             delete h;
             set_err(err, "OpenCV read an empty network");

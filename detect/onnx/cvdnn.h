@@ -6,9 +6,10 @@ extern "C" {
 
 typedef void* TallydDNN;
 
-/* Opens an ONNX model with OpenCV's DNN module. On failure returns NULL and
-   sets *err to a malloc'd message the caller frees. */
-TallydDNN tallyd_dnn_open(const char* path, const char** out_names, int n_out, char** err);
+/* Opens an ONNX model (weights NULL or empty) or a Darknet cfg with its
+   weights file with OpenCV's DNN module. On failure returns NULL and sets
+   *err to a malloc'd message the caller frees. */
+TallydDNN tallyd_dnn_open(const char* path, const char* weights, const char** out_names, int n_out, char** err);
 
 /* Runs the network on n images of c x h x w float32 values stored back to
    back. The outputs stay inside the network until the next forward or close.

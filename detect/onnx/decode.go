@@ -60,6 +60,9 @@ func imageOf(t tensor, i int) ([]float32, []int, error) {
 
 // decode appends image i's candidates to dst.
 func (d *decoder) decode(outs []tensor, i int, dst []candidate) ([]candidate, error) {
+	if isRawLayout(d.plan.Layout) {
+		return d.rawHeads(outs, i, dst)
+	}
 	if d.plan.Boxes >= len(outs) || d.plan.Scores >= len(outs) {
 		return dst, fmt.Errorf("want %d outputs, got %d", max(d.plan.Boxes, d.plan.Scores)+1, len(outs))
 	}

@@ -26,6 +26,23 @@ func fuzzDecode(f *testing.F, layout Layout, shapes [][]int) {
 		if layout == LayoutBoxesScores {
 			plan.Scores = 1
 		}
+		if isRawLayout(layout) {
+			var infos []TensorInfo
+			for _, sh := range shapes {
+				dims := []int64{1}
+				for _, v := range sh {
+					dims = append(dims, int64(v))
+				}
+				infos = append(infos, TensorInfo{Name: "head", ElemType: elemFloat, Dims: dims})
+			}
+			spec := &HeadSpec{Anchors: [][][2]float64{{{10, 14}, {23, 27}}, {{37, 58}, {81, 82}}}, ScaleXY: []float64{1.1},
+				SigmoidApplied: opts&64 != 0, From: "anchors"}
+			p, err := rawPlan(infos, inW, inH, layout, 0, spec)
+			if err != nil {
+				t.Fatal(err)
+			}
+			plan = p
+		}
 		thr := []float64{0.25, 0.5, 0}
 		if opts&1 != 0 {
 			thr[1] = math.Inf(1) // class not allowed
@@ -105,4 +122,12 @@ func TestDecodeShapeErrors(t *testing.T) {
 			t.Errorf("outputs %v: no error", outs)
 		}
 	}
+}
+
+// Raw anchor heads at 64x64: strides 8 and 16, 2 anchors of 5+3 values.
+func FuzzDecodeAnchorHeads(f *testing.F) {
+	fuzzDecode(f, LayoutAnchorHeads, [][]int{{16, 8, 8}, {16, 4, 4}})
+}
+func FuzzDecodeAnchorHeadsLast(f *testing.F) {
+	fuzzDecode(f, LayoutAnchorHeadsLast, [][]int{{8, 8, 16}, {4, 4, 16}})
 }

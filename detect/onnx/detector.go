@@ -2,7 +2,6 @@ package onnx
 
 import (
 	"context"
-	"errors"
 	"fmt"
 	"math"
 	"os"
@@ -15,8 +14,9 @@ import (
 )
 
 // Detector finds objects with a YOLO-family ONNX model on the CPU. It is safe
-// for concurrent use: preparation runs on the callers' goroutines, inference
-// one batch at a time.
+// for concurrent use: preparation runs on the callers' goroutines; inference
+// runs on a pool of sessions (Config.Sessions), one batch per session at a
+// time, so as many Detect calls as there are sessions infer at once.
 type Detector struct {
 	info  Info
 	emits []string // class names the detector can report (the allow-list, else all)
@@ -25,12 +25,14 @@ type Detector struct {
 	post  *post
 	bufs  sync.Pool // *[]float32 of pre.size() values
 	rec   recorder
+	pool  *pool
+	// inferOnCaller: the engine infers on the calling thread (ONNX Runtime
+	// with one intra-op thread), so the thread's CPU time is the call's.
+	inferOnCaller bool
 
-	mu     sync.Mutex // guards the fields below; held for a whole inference + decode
-	eng    engine
-	batch  []float32 // input of batches of more than one frame
-	cands  []candidate
-	closed bool
+	// eng is the first session's engine, for tests and benchmarks that run
+	// the engine alone; nothing else may use it while the detector runs.
+	eng engine
 }
 
 // Info describes a loaded model: what `tallyd check` prints.
@@ -103,22 +105,28 @@ func New(cfg Config) (*Detector, error) {
 	d.dec = newDecoder(plan, w, h, classes, thr)
 	d.post = &post{names: names, nms: cfg.NMS, iou: cfg.IoU, classAware: cfg.ClassAware,
 		maxDets: cfg.MaxDetections, minBox: cfg.MinBox}
+	var start func() (engine, error)
 	switch cfg.Engine {
 	case EngineOpenCV:
-		e, err := newCVEngine(cfg.Model, in, mi.Outputs, h, w)
-		if err != nil {
-			return nil, modelErr("model", fmt.Sprintf("OpenCV DNN cannot load %q: %v", cfg.Model, err))
+		start = func() (engine, error) {
+			e, err := newCVEngine(cfg.Model, in, mi.Outputs, h, w)
+			if err != nil {
+				return nil, modelErr("model", fmt.Sprintf("OpenCV DNN cannot load %q: %v", cfg.Model, err))
+			}
+			return e, nil
 		}
-		d.eng = e
 	case EngineORT, "":
-		e, err := newORTEngine(cfg, in, mi.Outputs, h, w)
-		if err != nil {
-			return nil, err
-		}
-		d.eng = e
+		start = func() (engine, error) { return newORTEngine(cfg, in, mi.Outputs, h, w) }
 	default:
 		return nil, settingErr("engine", fmt.Sprintf("want ort or opencv (found %q)", cfg.Engine))
 	}
+	sessions, err := newSessions(cfg.SessionCount(), start)
+	if err != nil {
+		return nil, err
+	}
+	d.pool = newPool(sessions)
+	d.inferOnCaller = cfg.Engine != EngineOpenCV && cfg.IntraThreads == 1
+	d.eng = sessions[0].eng
 	d.info.Engine = d.eng.version()
 	return d, nil
 }
@@ -323,62 +331,64 @@ func (d *Detector) Detect(ctx context.Context, batch []*capture.Frame) ([][]dete
 			return nil, err
 		}
 		hi := min(lo+chunk, len(items))
-		if err := d.detectChunk(items[lo:hi], chunk, batch[lo:hi], out[lo:hi], start); err != nil {
+		s, err := d.pool.acquire(ctx)
+		if err != nil {
+			return nil, err
+		}
+		err = d.detectChunk(s, items[lo:hi], chunk, batch[lo:hi], out[lo:hi], start)
+		d.pool.release(s)
+		if err != nil {
 			return nil, err
 		}
 	}
 	return out, nil
 }
 
-// detectChunk runs one inference over items (padded to n images when the
-// model's batch size is fixed) and decodes each image.
-func (d *Detector) detectChunk(items []*prepared, n int, frames []*capture.Frame, out [][]detect.Detection, start time.Time) error {
-	d.mu.Lock()
-	defer d.mu.Unlock()
-	if d.closed {
-		return errors.New("onnx detector: closed")
-	}
+// detectChunk runs one inference on session s over items (padded to n
+// images when the model's batch size is fixed) and decodes each image.
+func (d *Detector) detectChunk(s *session, items []*prepared, n int, frames []*capture.Frame, out [][]detect.Detection, start time.Time) error {
 	size := d.pre.size()
 	input := *items[0].buf
 	if n > 1 {
-		if cap(d.batch) < n*size {
-			d.batch = make([]float32, n*size)
+		if cap(s.batch) < n*size {
+			s.batch = make([]float32, n*size)
 		}
-		input = d.batch[:n*size]
+		input = s.batch[:n*size]
 		for i, p := range items {
 			copy(input[i*size:(i+1)*size], *p.buf)
 		}
 		clear(input[len(items)*size:])
 	}
-	t0, c0 := time.Now(), processCPU()
-	outs, err := d.eng.run(input, n)
+	runtime.LockOSThread()
+	defer runtime.UnlockOSThread()
+	// With one intra-op thread ONNX Runtime infers on the calling thread, so
+	// this thread's CPU time is the inference's own, not that of sessions
+	// running beside it; otherwise the engine's threads count too and only
+	// the process's CPU time says what the call cost.
+	t0, c0, p0 := time.Now(), threadCPU(), processCPU()
+	outs, err := s.eng.run(input, n)
 	if err != nil {
 		return fmt.Errorf("onnx detector: %w", err)
 	}
-	d.rec.inferred(time.Since(t0), processCPU()-c0)
-	runtime.LockOSThread()
-	defer runtime.UnlockOSThread()
+	cpu := processCPU() - p0
+	if d.inferOnCaller {
+		cpu = threadCPU() - c0
+	}
+	d.rec.inferred(time.Since(t0), cpu)
 	for i, p := range items {
 		t1, c1 := time.Now(), threadCPU()
-		d.cands, err = d.dec.decode(outs, i, d.cands[:0])
+		s.cands, err = d.dec.decode(outs, i, s.cands[:0])
 		if err != nil {
 			return fmt.Errorf("onnx detector: decode %s frame %d: %w", frames[i].Source, frames[i].Seq, err)
 		}
-		out[i] = d.post.finish(d.cands, p.geo, d.dec.plan.Layout == LayoutE2E)
+		out[i] = d.post.finish(s.cands, p.geo, d.dec.plan.Layout == LayoutE2E)
 		done := time.Now()
 		d.rec.frame(done.Sub(t1), threadCPU()-c1, done.Sub(start), frames[i].Captured, done)
 	}
 	return nil
 }
 
-// Close stops the engine; safe to call twice. Frames still holding prepared
+// Close waits for inferences under way, then stops every session; safe to
+// call twice. Detect calls after Close fail. Frames still holding prepared
 // input may be closed afterwards.
-func (d *Detector) Close() error {
-	d.mu.Lock()
-	defer d.mu.Unlock()
-	if d.closed {
-		return nil
-	}
-	d.closed = true
-	return d.eng.close()
-}
+func (d *Detector) Close() error { return d.pool.close() }

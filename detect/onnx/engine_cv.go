@@ -41,6 +41,8 @@ type cvEngine struct {
 	nOut      int
 }
 
+// newCVEngine opens an ONNX model, or a Darknet cfg (path ending in .cfg)
+// with the .weights file beside it.
 func newCVEngine(path string, input TensorInfo, outputs []TensorInfo, h, w int) (*cvEngine, error) {
 	cPath := C.CString(path)
 	defer C.free(unsafe.Pointer(cPath))
@@ -53,8 +55,13 @@ func newCVEngine(path string, input TensorInfo, outputs []TensorInfo, h, w int) 
 			C.free(unsafe.Pointer(n))
 		}
 	}()
+	var cWeights *C.char
+	if isDarknetPath(path) {
+		cWeights = C.CString(darknetWeights(path))
+		defer C.free(unsafe.Pointer(cWeights))
+	}
 	var cErr *C.char
-	p := C.tallyd_dnn_open(cPath, (**C.char)(unsafe.Pointer(&names[0])), C.int(len(names)), &cErr)
+	p := C.tallyd_dnn_open(cPath, cWeights, (**C.char)(unsafe.Pointer(&names[0])), C.int(len(names)), &cErr)
 	if p == nil {
 		return nil, errors.New(takeCString(cErr))
 	}

@@ -3,6 +3,7 @@ package onnx
 import (
 	"errors"
 	"fmt"
+	"strings"
 
 	ort "github.com/yalue/onnxruntime_go"
 )
@@ -52,6 +53,9 @@ func newORTEngine(cfg Config, input TensorInfo, outputs []TensorInfo, h, w int) 
 			return nil, fmt.Errorf("onnx runtime inter-op threads: %w", err)
 		}
 	}
+	if err := sessionEntries(opts, cfg); err != nil {
+		return nil, err
+	}
 	level, ok := optLevels[cfg.Optimization]
 	if !ok {
 		level = ort.GraphOptimizationLevelEnableAll
@@ -70,6 +74,37 @@ func newORTEngine(cfg Config, input TensorInfo, outputs []TensorInfo, h, w int) 
 		return nil, modelErr("model", fmt.Sprintf("ONNX Runtime %s cannot load %q: %v", ver, cfg.Model, err))
 	}
 	return &ortEngine{sess: sess, ver: ver, c: 3, h: h, w: w, outDims: dims}, nil
+}
+
+// Session config entries (onnxruntime_session_options_config_keys.h of ONNX
+// Runtime 1.24).
+const (
+	entryIntraSpin         = "session.intra_op.allow_spinning"
+	entryInterSpin         = "session.inter_op.allow_spinning"
+	entryDisableOptimizers = "optimization.disable_specified_optimizers"
+)
+
+// sessionEntries sets spinning and the disabled optimisers.
+func sessionEntries(opts *ort.SessionOptions, cfg Config) error {
+	if !cfg.Spin {
+		for _, k := range []string{entryIntraSpin, entryInterSpin} {
+			if err := opts.AddSessionConfigEntry(k, "0"); err != nil {
+				return fmt.Errorf("onnx runtime session entry %s: %w", k, err)
+			}
+		}
+	}
+	for i, name := range cfg.DisableOptimizers {
+		if name == "" || strings.ContainsAny(name, ", \t") {
+			return settingErr(fmt.Sprintf("disable_optimizers[%d]", i), fmt.Sprintf("want an optimiser name without commas or spaces (found %q)", name))
+		}
+	}
+	if len(cfg.DisableOptimizers) > 0 {
+		v := strings.Join(cfg.DisableOptimizers, ",")
+		if err := opts.AddSessionConfigEntry(entryDisableOptimizers, v); err != nil {
+			return fmt.Errorf("onnx runtime session entry %s=%s: %w", entryDisableOptimizers, v, err)
+		}
+	}
+	return nil
 }
 
 func (e *ortEngine) run(input []float32, n int) ([]tensor, error) {

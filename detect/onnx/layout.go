@@ -37,11 +37,15 @@ type layoutPlan struct {
 	Classes int // number of class scores per row (0 when the model does not say: e2e)
 	Boxes   int // output index of the boxes (boxes-scores) or of the single output
 	Scores  int // output index of the scores (boxes-scores)
+	// Heads are the raw anchor heads (anchor-heads layouts), finest first.
+	Heads   []rawHead
+	Sigmoid bool // raw heads hold sigmoid outputs already
 }
 
 // layoutHelp lists the supported layouts for error messages.
 const layoutHelp = "yolox-grid [B,N,5+C] (N = grid cells at strides 8/16/32), rows-obj [B,N,5+C], " +
-	"rows-noobj-chw [B,4+C,N], boxes-scores [B,N,1,4] + [B,N,C], e2e [B,K,6]"
+	"rows-noobj-chw [B,4+C,N], boxes-scores [B,N,1,4] + [B,N,C], e2e [B,K,6], " +
+	"anchor-heads 1-3 x [B,A*(5+C),H,W], anchor-heads-last 1-3 x [B,H,W,A*(5+C)]"
 
 // ChooseLayout picks or checks the layout of a model's outputs for an
 // inW x inH input. want is LayoutAuto or the configured layout; names is the
@@ -52,14 +56,26 @@ const layoutHelp = "yolox-grid [B,N,5+C] (N = grid cells at strides 8/16/32), ro
 // are boxes-scores; one output [B,K,6] with K not a grid count and at most
 // 1000 is e2e; one output [B,A,D] with A >= D is yolox-grid when A is the
 // grid count for the input size, else rows-obj; with A < D it is
-// rows-noobj-chw.
+// rows-noobj-chw. One to three outputs [B,A*(5+C),H,W] (or channels last)
+// whose grids divide the input by whole strides are raw anchor heads: those
+// need anchors, which New does not take (Load does), so auto asks for them.
 func ChooseLayout(outputs []TensorInfo, inW, inH int, want Layout, names int) (layoutPlan, error) {
 	for _, o := range outputs {
 		if o.ElemType != elemFloat {
 			return layoutPlan{}, fmt.Errorf("output %s has element type %d, want float32 (1)", o, o.ElemType)
 		}
 	}
+	if isRawLayout(want) {
+		plan, err := rawPlan(outputs, inW, inH, want, names, nil)
+		if err != nil {
+			return layoutPlan{}, fmt.Errorf("output shapes %s do not fit layout %s: %v (supported: %s)", shapes(outputs), want, err, layoutHelp)
+		}
+		return plan, nil
+	}
 	if want == "" || want == LayoutAuto {
+		if l, ok := rawByShape(outputs, inW, inH); ok {
+			return layoutPlan{}, fmt.Errorf("output shapes %s are raw anchor heads (layout %s): %s", shapes(outputs), l, headsHelp)
+		}
 		plan, ok := autoLayout(outputs, inW, inH)
 		if !ok {
 			return layoutPlan{}, fmt.Errorf("output shapes %s fit none of the supported layouts: %s", shapes(outputs), layoutHelp)

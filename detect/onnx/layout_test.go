@@ -1,6 +1,7 @@
 package onnx
 
 import (
+	"reflect"
 	"strings"
 	"testing"
 )
@@ -66,7 +67,7 @@ func TestChooseLayout(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			if plan != tt.plan {
+			if !reflect.DeepEqual(plan, tt.plan) {
 				t.Fatalf("plan %+v, want %+v", plan, tt.plan)
 			}
 		})

@@ -62,7 +62,17 @@ var errNotModel = errors.New("not an ONNX model")
 // ParseModel reads the protobuf ModelProto of an ONNX file far enough to list
 // the graph's inputs, outputs and metadata (field numbers from onnx.proto of
 // the ONNX specification). It never panics on malformed input.
+//
+// A Darknet cfg (text starting with [net]) is read as well: its input and
+// its raw heads as OpenCV's DNN module names them (see darknet.go).
 func ParseModel(data []byte) (ModelInfo, error) {
+	if looksLikeDarknetCfg(data) {
+		dc, err := parseDarknetCfg(data)
+		if err != nil {
+			return ModelInfo{}, fmt.Errorf("a Darknet cfg with an error at line %v", err)
+		}
+		return dc.modelInfo(), nil
+	}
 	var m ModelInfo
 	var graph []byte
 	seenGraph := false

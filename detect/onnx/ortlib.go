@@ -72,7 +72,8 @@ var ortCachePath = filepath.Join(".cache", "onnxruntime", ORTVersion, "libonnxru
 // ResolveLibrary finds the ONNX Runtime shared library: the configured path
 // if any, else $TALLYD_ORT_LIB, else .cache/onnxruntime/1.24.1/libonnxruntime.so.1
 // relative to the working directory, then to the parent of the executable's
-// folder (bin/tallyd in a checkout). It returns the path and where it came
+// folder (bin/tallyd in a checkout), then lib/tallyd beside the executable's
+// folder (make install). It returns the path and where it came
 // from, or an error listing every place tried.
 func ResolveLibrary(configured string) (path, from string, err error) {
 	if configured != "" {
@@ -90,6 +91,12 @@ func ResolveLibrary(configured string) (path, from string, err error) {
 		tried = append(tried, p)
 		if _, err := os.Stat(p); err == nil {
 			return p, "the executable's folder", nil
+		}
+		// make install: PREFIX/bin/tallyd and PREFIX/lib/tallyd/.
+		p = filepath.Join(filepath.Dir(filepath.Dir(exe)), "lib", "tallyd", "libonnxruntime.so.1")
+		tried = append(tried, p)
+		if _, err := os.Stat(p); err == nil {
+			return p, "the installed library folder", nil
 		}
 	}
 	return "", "", libErr(fmt.Sprintf("no ONNX Runtime %s library found (looked for %s); run make setup, set %s or detector.onnx.library",

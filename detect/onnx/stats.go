@@ -14,8 +14,11 @@ type Stats struct {
 	Prepared int64 // frames prepared ahead of Detect (on a capture goroutine)
 	// Prepare is letterbox + conversion; CPU is the preparing thread's.
 	Prepare Stage
-	// Infer is the engine call; CPU is the whole process's during the call
-	// (the engine's own threads included, and anything else running then).
+	// Infer is the engine call. CPU is the calling thread's when ONNX
+	// Runtime runs one intra-op thread (the inference runs there; sessions
+	// running beside it are not counted), else the whole process's during
+	// the call (the engine's own threads included, and anything else running
+	// then).
 	Infer Stage
 	// Post is decoding, mapping to source pixels and NMS; CPU is the thread's.
 	Post Stage

@@ -33,6 +33,7 @@ type Config struct {
 	// folder; default .tallyd.
 	StateDir  string    `yaml:"state_dir"`
 	Intervals Intervals `yaml:"intervals"`
+	HTTP      HTTP      `yaml:"http"`
 
 	// File is the path the config was read from ("" when built in code).
 	File  string `yaml:"-"`
@@ -165,8 +166,21 @@ type ByteTrack struct {
 	LowMatchIoU   float64     `yaml:"low_match_iou"`
 	BirthHits     int         `yaml:"birth_hits"`
 	LostTTL       Duration    `yaml:"lost_ttl"`
+	LostFrames    int         `yaml:"lost_frames"`
+	Scores        TrackScores `yaml:"scores"`
 	PerClass      bool        `yaml:"per_class"`
 	Motion        TrackMotion `yaml:"motion"`
+}
+
+// TrackScores says how bytetrack picks high_score and new_track_score (see
+// track.ScoreCalibration): mode auto (the default) is fixed for the onnx
+// and motion detectors, whose score scales are known, and warmup for
+// detections read from files.
+type TrackScores struct {
+	Mode             track.ScoreMode `yaml:"mode"`
+	WarmupDetections int             `yaml:"warmup_detections"`
+	HighQuantile     float64         `yaml:"high_quantile"`
+	NewQuantile      float64         `yaml:"new_quantile"`
 }
 
 // TrackMotion tunes the Kalman filter of bytetrack.

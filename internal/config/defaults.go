@@ -56,6 +56,8 @@ func Defaults() Config {
 			},
 			ONNX: ONNX{
 				Engine: o.Engine, Optimization: o.Optimization, Channels: channelsOf(o.RGB), Scale: o.Scale,
+				Threads:  ONNXThreads{Intra: o.IntraThreads, Inter: o.InterThreads, Spin: o.Spin},
+				Sessions: o.Sessions, DisableOptimizers: append([]string(nil), o.DisableOptimizers...),
 				Letterbox: ONNXLetterbox{Pad: int(o.Pad), Place: o.Place}, Layout: o.Layout,
 				ScoreThreshold: o.ScoreThreshold,
 				NMS:            ONNXNMS{Kind: o.NMS, IoU: o.IoU, ClassAware: o.ClassAware},
@@ -68,7 +70,9 @@ func Defaults() Config {
 			ByteTrack: ByteTrack{
 				HighScore: bt.HighScore, LowScore: bt.LowScore, NewTrackScore: bt.NewTrackScore,
 				MatchIoU: bt.MatchIoU, LowMatchIoU: bt.LowMatchIoU, BirthHits: bt.BirthHits,
-				LostTTL: Duration{bt.LostTTL}, PerClass: bt.PerClass,
+				LostTTL: Duration{bt.LostTTL}, LostFrames: bt.LostFrames, PerClass: bt.PerClass,
+				Scores: TrackScores{Mode: bt.Scores.Mode, WarmupDetections: bt.Scores.WarmupDetections,
+					HighQuantile: bt.Scores.HighQuantile, NewQuantile: bt.Scores.NewQuantile},
 				Motion: TrackMotion{MeasurementNoise: bt.Motion.MeasurementNoise,
 					Acceleration: bt.Motion.Acceleration, SizeAcceleration: bt.Motion.SizeAcceleration},
 			},

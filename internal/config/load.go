@@ -121,6 +121,7 @@ func Parse(name string, data []byte, checks ...Check) (*Config, error) {
 	cfg.lines = w.lines
 	cfg.fillRuleDefaults()
 	cfg.fillSourceDefaults()
+	cfg.fillTrackerDefaults()
 	serrs := cfg.resolveSecrets()
 	if err := cfg.Validate(checks...); err != nil || len(serrs) > 0 {
 		var verrs Errors

@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 	"os"
+	"path/filepath"
 	"slices"
 	"sort"
 	"strings"
@@ -29,9 +30,15 @@ type ONNX struct {
 	Engine onnx.Engine `yaml:"engine"` // ort or opencv
 	// Library is the ONNX Runtime 1.24.1 shared library; empty looks at
 	// $TALLYD_ORT_LIB, then .cache/onnxruntime/1.24.1/ (make setup).
-	Library      string      `yaml:"library"`
-	Threads      ONNXThreads `yaml:"threads"`
-	Optimization string      `yaml:"optimization"` // disabled, basic, extended, all
+	Library string      `yaml:"library"`
+	Threads ONNXThreads `yaml:"threads"`
+	// Sessions is how many inferences run at once, each on its own ONNX
+	// Runtime session; 0 = one per core divided by threads.intra.
+	Sessions int `yaml:"sessions"`
+	// DisableOptimizers names ONNX Runtime graph optimisers to skip;
+	// default [QuickGeluFusion] (README, "Sessions and threads").
+	DisableOptimizers []string `yaml:"disable_optimizers"`
+	Optimization      string   `yaml:"optimization"` // disabled, basic, extended, all
 	// Input sets the input size of a model whose size is dynamic.
 	Input     ONNXInput     `yaml:"input"`
 	Channels  string        `yaml:"channels"` // bgr or rgb
@@ -48,12 +55,23 @@ type ONNX struct {
 	NMS             ONNXNMS            `yaml:"nms"`
 	MaxDetections   int                `yaml:"max_detections"` // per frame, after NMS
 	MinBox          float64            `yaml:"min_box"`        // smallest width and height kept, source pixels
+	// Raw anchor heads (layouts anchor-heads, anchor-heads-last): anchors per
+	// head from the finest (smallest stride) to the coarsest, each a list of
+	// width,height pairs in input pixels; or cfg, the Darknet .cfg the ONNX
+	// model was converted from. A Darknet model (model: x.cfg with x.weights
+	// beside it, engine opencv) needs neither.
+	Anchors        [][]float64 `yaml:"anchors"`
+	ScaleXY        []float64   `yaml:"scale_x_y"`       // per head or one for all; empty = 1 (YOLOv3)
+	SigmoidApplied bool        `yaml:"sigmoid_applied"` // the heads hold sigmoid outputs already
+	Cfg            string      `yaml:"cfg"`
 }
 
-// ONNXThreads sizes ONNX Runtime's thread pools; 0 lets it choose.
+// ONNXThreads sizes each ONNX Runtime session's thread pools (0 lets it
+// choose) and says whether idle pool threads spin-wait for work.
 type ONNXThreads struct {
-	Intra int `yaml:"intra"`
-	Inter int `yaml:"inter"`
+	Intra int  `yaml:"intra"`
+	Inter int  `yaml:"inter"`
+	Spin  bool `yaml:"spin"`
 }
 
 // ONNXInput is the input size for models whose input size is dynamic.
@@ -78,11 +96,25 @@ type ONNXNMS struct {
 func (v *validator) onnx() {
 	o := v.c.Detector.ONNX
 	p := "detector.onnx."
-	if o.Model == "" {
+	darknet := strings.EqualFold(filepath.Ext(o.Model), ".cfg")
+	switch {
+	case o.Model == "":
 		v.fail(p+"model", "is required")
-	} else {
+	case darknet:
+		v.file(p+"model", o.Model, "a Darknet cfg")
+		w := v.c.Resolve(strings.TrimSuffix(o.Model, filepath.Ext(o.Model)) + ".weights")
+		if st, err := os.Stat(w); err != nil {
+			v.fail(p+"model", "a Darknet cfg needs its weights beside it: cannot open %q: %v", w, unwrapPathErr(err))
+		} else if st.IsDir() {
+			v.fail(p+"model", "a Darknet cfg needs its weights beside it: %q is a folder", w)
+		}
+		if o.Engine != onnx.EngineOpenCV {
+			v.fail(p+"engine", "a Darknet model runs on opencv (found %q)", o.Engine)
+		}
+	default:
 		v.file(p+"model", o.Model, "an ONNX model")
 	}
+	v.rawHeads(p, o, darknet)
 	if o.Names != "" {
 		v.file(p+"names", o.Names, "a class names file")
 	}
@@ -100,6 +132,21 @@ func (v *validator) onnx() {
 	}
 	if o.Threads.Inter < 0 || o.Threads.Inter > 256 {
 		v.fail(p+"threads.inter", "must be within 0..256, 0 lets ONNX Runtime choose (found %d)", o.Threads.Inter)
+	}
+	if o.Sessions < 0 || o.Sessions > MaxONNXSessions {
+		v.fail(p+"sessions", "must be within 0..%d, 0 = one per core divided by threads.intra (found %d)", MaxONNXSessions, o.Sessions)
+	}
+	if len(o.DisableOptimizers) > MaxDisabledOptimizers {
+		v.fail(p+"disable_optimizers", "at most %d names (found %d)", MaxDisabledOptimizers, len(o.DisableOptimizers))
+	}
+	for i, n := range o.DisableOptimizers {
+		key := fmt.Sprintf("%sdisable_optimizers[%d]", p, i)
+		switch {
+		case n == "" || strings.ContainsAny(n, ", \t"):
+			v.fail(key, "want an ONNX Runtime optimiser name without commas or spaces, e.g. QuickGeluFusion (found %q)", n)
+		case len(n) > MaxTokenLen:
+			v.fail(key, "at most %d characters (found %d)", MaxTokenLen, len(n))
+		}
 	}
 	switch o.Optimization {
 	case "disabled", "basic", "extended", "all":
@@ -177,6 +224,50 @@ func (v *validator) onnx() {
 	}
 	if !(o.MinBox >= 0) || math.IsInf(o.MinBox, 0) {
 		v.fail(p+"min_box", "must not be negative (found %v)", o.MinBox)
+	}
+}
+
+// Limits of the ONNX detector's session settings.
+const (
+	MaxONNXSessions       = 64 // inference sessions (each holds a copy of the model)
+	MaxDisabledOptimizers = 16
+)
+
+// rawHeads checks the anchors, scale_x_y and cfg of raw anchor heads
+// (within the limits of detect/onnx: 1..3 heads, 1..9 anchors each).
+func (v *validator) rawHeads(p string, o ONNX, darknet bool) {
+	if len(o.Anchors) > 3 {
+		v.fail(p+"anchors", "want 1 to 3 groups, one per head (found %d)", len(o.Anchors))
+	}
+	for i, g := range o.Anchors {
+		if len(g) < 2 || len(g) > 18 || len(g)%2 != 0 {
+			v.fail(fmt.Sprintf("%sanchors[%d]", p, i), "want 1 to 9 width,height pairs in input pixels (found %d values)", len(g))
+			continue
+		}
+		for _, a := range g {
+			if !(a > 0) || math.IsInf(a, 0) {
+				v.fail(fmt.Sprintf("%sanchors[%d]", p, i), "width and height must be positive input pixels (found %v)", a)
+				break
+			}
+		}
+	}
+	if len(o.ScaleXY) > 1 && len(o.Anchors) > 0 && len(o.ScaleXY) != len(o.Anchors) {
+		v.fail(p+"scale_x_y", "want one value per anchors group or one for all (found %d for %d groups)", len(o.ScaleXY), len(o.Anchors))
+	}
+	for i, s := range o.ScaleXY {
+		if !(s >= 1 && s <= 4) {
+			v.fail(fmt.Sprintf("%sscale_x_y[%d]", p, i), "must be within 1..4 (found %v)", s)
+		}
+	}
+	if o.Cfg != "" {
+		switch {
+		case darknet:
+			v.fail(p+"cfg", "the model is a Darknet cfg already; cfg is for ONNX models converted from Darknet")
+		case len(o.Anchors) > 0:
+			v.fail(p+"cfg", "set anchors or cfg, not both")
+		default:
+			v.file(p+"cfg", o.Cfg, "a Darknet cfg")
+		}
 	}
 }
 

@@ -63,6 +63,7 @@ func (c *Config) secrets() []struct {
 		{"output.nats.embedded.password", &c.Output.NATS.Embedded.Password},
 		{"output.nats.auth.password", &c.Output.NATS.Auth.Password},
 		{"output.nats.auth.token", &c.Output.NATS.Auth.Token},
+		{"http.token", &c.HTTP.Token},
 	}
 	for i := range c.Sources {
 		out = append(out, struct {
@@ -76,6 +77,10 @@ func (c *Config) secrets() []struct {
 // resolveSecrets replaces env:, file: and literal: secrets by their values.
 func (c *Config) resolveSecrets() Errors {
 	var errs Errors
+	if t := string(c.HTTP.Token); t != "" && !strings.HasPrefix(t, "env:") && !strings.HasPrefix(t, "file:") {
+		errs = append(errs, c.Errorf("http.token", "want env:NAME or file:PATH, so that the token is not in the site file"))
+		c.HTTP.Token = ""
+	}
 	for _, k := range c.secrets() {
 		v := string(*k.s)
 		switch {

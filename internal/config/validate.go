@@ -48,6 +48,7 @@ func (c *Config) Validate(checks ...Check) error {
 	}
 	v.output()
 	v.delivery()
+	v.http()
 	for _, check := range checks {
 		v.errs = append(v.errs, check(c)...)
 	}

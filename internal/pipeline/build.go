@@ -43,13 +43,21 @@ type Options struct {
 	// text format to this path (with "-<source>" before the extension when
 	// there are several sources).
 	TracksOut string
-	// Workers is the number of detect workers sharing the detector (default
-	// 1). More than one helps a cheap detector on several sources; a detector
-	// that already uses every core (ONNX) wants 1.
+	// Annotate, when set, writes each source's processed frames with the
+	// rules, tracks and counts drawn to this .mp4 or .avi file (with
+	// "-<source>" before the extension when there are several sources).
+	Annotate string
+	// Offline runs without any output: no NATS server, no outbox, no files,
+	// no saved state read or written (tallyd snapshot).
+	Offline bool
+	// Until, when set, stops processing each source after the first frame
+	// at or past this source time, and keeps that frame for Snapshot.
+	Until *time.Duration
+	// Workers is the number of detect workers sharing the detector; 0 = one
+	// per session of a detector that runs several inferences at once (the
+	// ONNX detector's pool, one session per core by default), else 1.
 	Workers int
 }
-
-func (o Options) workers() int { return max(1, o.Workers) }
 
 // Pipeline is one site's running daemon: capture workers per source, one
 // detector shared by the detect workers, a tracker and rules per source, and
@@ -66,6 +74,17 @@ type Pipeline struct {
 	drains  []func() error // publishers and track files: flushed and closed when Run ends
 	closers []func() error // everything else, released by Close in reverse order
 	natsURL string
+	nc      *nats.Conn
+	metrics *metrics // nil until Register
+	// rules holds the site file whose rules are in force after a reload
+	// (nil: cfg's); reloadMu serialises reloads.
+	rules    atomic.Pointer[config.Config]
+	reloadMu sync.Mutex
+	sched    atomic.Pointer[scheduler] // set while Run runs
+	// stopCapture stops every capture worker (Options.Until reached); set
+	// by Run. untilLeft counts sources still short of Until.
+	stopCapture context.CancelFunc
+	untilLeft   atomic.Int64
 
 	checking    bool // a dry run: open live sources once, without reconnecting
 	detectCalls atomic.Int64
@@ -95,6 +114,7 @@ func Build(cfg *config.Config, opts Options) (_ *Pipeline, err error) {
 		opts.DeliverTimeout = 5 * time.Second
 	}
 	p := &Pipeline{cfg: cfg, opts: opts, log: opts.Log, run: newRunID(opts.Start)}
+	p.untilLeft.Store(int64(len(cfg.Sources)))
 	defer func() {
 		if err != nil {
 			_ = p.Close()
@@ -131,6 +151,11 @@ func Build(cfg *config.Config, opts Options) (_ *Pipeline, err error) {
 	}
 	if opts.TracksOut != "" {
 		if err := p.openTrackFiles(opts.TracksOut); err != nil {
+			return nil, err
+		}
+	}
+	if opts.Annotate != "" {
+		if err := p.openAnnotators(opts.Annotate); err != nil {
 			return nil, err
 		}
 	}
@@ -208,6 +233,10 @@ func (p *Pipeline) openOutputs() error {
 	d := &delivery{log: p.log, prefix: n.Prefix,
 		drops: repeat.New(p.log, "events dropped", repeat.DefaultPeriod).AtLevel(slog.LevelError)}
 	p.out = d
+	if p.opts.Offline {
+		d.state = newStateSink(nil, "", p.log)
+		return nil
+	}
 	url := n.URL
 	useJS := n.JetStream.Mode != config.JetStreamOff
 	if url == "" {
@@ -229,6 +258,7 @@ func (p *Pipeline) openOutputs() error {
 		return err
 	}
 	p.closers = append(p.closers, func() error { nc.Close(); return nil })
+	p.nc = nc
 	if n.URL != "" && !nc.IsConnected() {
 		p.log.Warn("NATS server not reachable yet; events wait in the outbox until it is", "url", bus.RedactURL(url))
 	}

@@ -23,6 +23,10 @@ type CheckReport struct {
 	// the embedded server; NATSReply is what the server answered.
 	NATS      string
 	NATSReply string
+	// Capacity is how many such sources this machine holds, measured when
+	// everything else checked out; CapacityErr says why it was not.
+	Capacity    *Capacity
+	CapacityErr error
 }
 
 // CheckedSource is one source opened by a dry run.
@@ -37,7 +41,9 @@ const brokerTimeout = 5 * time.Second
 
 // Check opens every source, the detector and a connection to an external
 // NATS server without starting anything, and reports every problem at once
-// (as config.Errors).
+// (as config.Errors). When all is well it then measures the capacity: every
+// source is opened once more and decoded for a moment, and the detector
+// timed on its frames (a few seconds).
 func Check(cfg *config.Config) (CheckReport, error) {
 	p := &Pipeline{cfg: cfg, opts: Options{Pace: capture.PaceMax}, checking: true, log: slog.New(slog.DiscardHandler)}
 	defer p.Close()
@@ -52,12 +58,13 @@ func Check(cfg *config.Config) (CheckReport, error) {
 		p.sources = append(p.sources, sr)
 		rep.Sources = append(rep.Sources, CheckedSource{ID: sc.ID, Kind: sc.Kind(), Info: sr.info})
 	}
-	if det, err := buildDetector(cfg); err != nil {
+	det, err := buildDetector(cfg)
+	if err != nil {
 		errs = appendErr(errs, err)
 	} else {
+		defer det.Close()
 		rep.Detector = det
 		errs = append(errs, checkClasses(cfg, det)...)
-		_ = det.Close()
 	}
 	if n := cfg.Output.NATS; n.URL != "" {
 		rep.NATS = bus.RedactURL(n.URL)
@@ -87,6 +94,15 @@ func Check(cfg *config.Config) (CheckReport, error) {
 	}
 	if len(errs) > 0 {
 		return rep, errs
+	}
+	// Release the sources first: a camera is then opened once at a time.
+	_ = p.Close()
+	p.det = det
+	c, err := measureCapacity(context.Background(), cfg, det, rep.Sources, p.workers())
+	if err != nil {
+		rep.CapacityErr = err
+	} else {
+		rep.Capacity = &c
 	}
 	return rep, nil
 }

@@ -38,6 +38,11 @@ func (p *Pipeline) process(ctx context.Context, jobs []job) error {
 			continue
 		}
 		f := j.frame
+		if sr.cursor.untilDone { // Options.Until: the frame to keep was processed
+			f.Close()
+			continue
+		}
+		p.applyReload(sr)
 		// 2. A loss report that a newer frame overtook: the old connection's
 		// tracks end first.
 		if sr.cursor.conn != 0 && f.Conn != sr.cursor.conn && sr.cursor.closedFor < sr.cursor.conn {
@@ -62,12 +67,14 @@ func (p *Pipeline) process(ctx context.Context, jobs []job) error {
 	if len(batch) == 0 {
 		return nil
 	}
+	defer func() {
+		for _, f := range batch {
+			f.Close()
+		}
+	}()
 	start := time.Now() // 4
 	dets, err := p.det.Detect(ctx, batch)
 	p.detectCalls.Add(1)
-	for _, f := range batch {
-		f.Close()
-	}
 	if err != nil {
 		return fmt.Errorf("detect: %w", err)
 	}
@@ -76,7 +83,7 @@ func (p *Pipeline) process(ctx context.Context, jobs []job) error {
 		sr := owners[i]
 		res := sr.stages.tracker.Update(f.PTS, dets[i])
 		if sr.tracks != nil {
-			if err := sr.tracks.write(int(f.Seq)+1, f.PTS, res); err != nil {
+			if err := sr.tracks.write(int(f.Seq)+1, res, sr.stages.w, sr.stages.h); err != nil {
 				return fmt.Errorf("source %s: write tracks: %w", sr.id, err)
 			}
 		}
@@ -84,10 +91,26 @@ func (p *Pipeline) process(ctx context.Context, jobs []job) error {
 			p.publish(sr, f.Captured, evs)
 			p.out.state.update(sr.id, sr.stages.engine.State(f.PTS))
 		}
+		sr.view.update(f.Mat, f.Seq, f.PTS, &sr.stages, res, p.opts.Until != nil)
+		if u := p.opts.Until; u != nil && f.PTS >= *u && !sr.cursor.untilDone {
+			sr.cursor.untilDone = true
+			if p.untilLeft.Add(-1) == 0 {
+				p.stopCapture()
+			}
+		}
+		if sr.annotate != nil {
+			if err := sr.annotate.write(f.Mat, &sr.stages, res, sr.stages.engine.Occupancy()); err != nil {
+				return fmt.Errorf("source %s: annotated video: %w", sr.id, err)
+			}
+		}
 		sr.cursor.seq, sr.cursor.pts, sr.cursor.captured = f.Seq, f.PTS, f.Captured
 		sr.count.processed.Add(1)
 		sr.count.detectNanos.Add(perFrame)
-		sr.count.ages.add(time.Since(f.Captured))
+		age := time.Since(f.Captured)
+		sr.count.ages.add(age)
+		if m := p.metrics; m != nil {
+			m.frame(sr.id, time.Duration(perFrame), age)
+		}
 	}
 	return nil
 }

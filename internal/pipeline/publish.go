@@ -37,8 +37,9 @@ func (p *Pipeline) ReopenFiles() error {
 
 // tracksFile streams one source's tracks in the MOTChallenge text format.
 type tracksFile struct {
-	f *os.File
-	w *bufio.Writer
+	f   *os.File
+	w   *bufio.Writer
+	out *track.Output // nil until the first frame
 }
 
 func (p *Pipeline) openTrackFiles(path string) error {
@@ -59,9 +60,21 @@ func (p *Pipeline) openTrackFiles(path string) error {
 	return nil
 }
 
-func (t *tracksFile) write(frame int, ts time.Duration, res track.Result) error {
-	return motfmt.Write(t.w, track.OutputRows(frame, ts, res, track.DefaultLostOutput))
+// write appends a frame's rows: the filtered box of each matched track,
+// clipped inside the w x h frame, and a newly confirmed track's earlier
+// frames (track.DefaultOutputConfig); nothing for lost tracks.
+func (t *tracksFile) write(frame int, res track.Result, w, h int) error {
+	if t.out == nil {
+		cfg := track.DefaultOutputConfig()
+		cfg.Width, cfg.Height = float64(w), float64(h)
+		t.out = track.NewOutput(cfg)
+	}
+	return motfmt.Write(t.w, t.out.Rows(frame, res))
 }
+
+// restart forgets the tracks written so far (a new tracker, or a new frame
+// size); the next write starts a new output.
+func (t *tracksFile) restart() { t.out = nil }
 
 func (t *tracksFile) close() error {
 	err := t.w.Flush()

@@ -23,8 +23,11 @@ import (
 func (p *Pipeline) Run(ctx context.Context) error {
 	procCtx, cancelProc := context.WithCancel(context.Background())
 	defer cancelProc()
+	ctx, p.stopCapture = context.WithCancel(ctx)
+	defer p.stopCapture()
 	p.out.start()
 	s := newScheduler(p)
+	p.sched.Store(s)
 	for _, sr := range p.sources {
 		sr.worker.Out.Notify(s.ready)
 		sr.worker.OnLost = func(l capture.Lost) {
@@ -33,7 +36,7 @@ func (p *Pipeline) Run(ctx context.Context) error {
 		}
 	}
 	var capWG, procWG sync.WaitGroup
-	errs := make(chan error, len(p.sources)+p.opts.workers())
+	errs := make(chan error, len(p.sources)+p.workers())
 	for _, sr := range p.sources {
 		capWG.Add(1)
 		go func() {
@@ -45,7 +48,7 @@ func (p *Pipeline) Run(ctx context.Context) error {
 			s.poke()
 		}()
 	}
-	for range p.opts.workers() {
+	for range p.workers() {
 		procWG.Add(1)
 		go func() {
 			defer procWG.Done()

@@ -7,8 +7,9 @@ import (
 	"tallyd/capture"
 )
 
-// The detect stage is shared by every source: one or more detect workers take
-// frames round-robin over the sources that have one ready, so that when the
+// The detect stage is shared by every source: one or more detect workers (by
+// default one per session of the detector's pool) take frames round-robin
+// over the sources that have one ready, so that when the
 // CPU cannot serve every source's target rate all of them slow down alike and
 // none starves. A source is never in two workers at once, which keeps its
 // frames in order and its tracker and background model single-threaded.
@@ -122,6 +123,22 @@ func (s *scheduler) work(ctx context.Context) error {
 			return err
 		}
 	}
+}
+
+// concurrent is a detector that runs several inferences at once, one per
+// session of its pool (the ONNX detector).
+type concurrent interface{ Sessions() int }
+
+// workers is the number of detect workers: Options.Workers when set, else
+// one per detector session, else 1.
+func (p *Pipeline) workers() int {
+	if p.opts.Workers > 0 {
+		return p.opts.Workers
+	}
+	if c, ok := p.det.(concurrent); ok && c.Sessions() > 1 {
+		return c.Sessions()
+	}
+	return 1
 }
 
 // batchSize is how many frames one Detect call may take: the detector's own

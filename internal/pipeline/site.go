@@ -90,6 +90,10 @@ func motionConfig(d config.Detector) motion.Config {
 	}
 }
 
+// ONNXConfig is the ONNX detector's configuration of a site file, for
+// commands that open detectors themselves (tallyd models).
+func ONNXConfig(cfg *config.Config) onnx.Config { return onnxConfig(cfg) }
+
 // onnxConfig is the ONNX detector's configuration, with paths resolved
 // against the site file's folder.
 func onnxConfig(cfg *config.Config) onnx.Config {
@@ -97,12 +101,14 @@ func onnxConfig(cfg *config.Config) onnx.Config {
 	c := onnx.Config{
 		Model: cfg.Resolve(o.Model), Names: cfg.Resolve(o.Names), Engine: o.Engine,
 		Library: cfg.Resolve(o.Library), IntraThreads: o.Threads.Intra, InterThreads: o.Threads.Inter,
+		Sessions: o.Sessions, Spin: o.Threads.Spin, DisableOptimizers: o.DisableOptimizers,
 		Optimization: o.Optimization, Width: o.Input.Width, Height: o.Input.Height,
 		RGB: o.Channels == "rgb", Scale: o.Scale, Std: [3]float64{1, 1, 1},
 		Pad: uint8(min(max(o.Letterbox.Pad, 0), 255)), Place: o.Letterbox.Place,
 		Layout: o.Layout, ScoreThreshold: o.ScoreThreshold, ClassThresholds: o.ClassThresholds,
 		Classes: o.Classes, NMS: o.NMS.Kind, IoU: o.NMS.IoU, ClassAware: o.NMS.ClassAware,
 		MaxDetections: o.MaxDetections, MinBox: o.MinBox,
+		Anchors: o.Anchors, ScaleXY: o.ScaleXY, SigmoidApplied: o.SigmoidApplied, DarknetCfg: cfg.Resolve(o.Cfg),
 	}
 	copy(c.Mean[:], o.Mean)
 	if len(o.Std) == 3 {
@@ -131,7 +137,9 @@ func trackerSettings(t config.Tracker) track.Settings {
 		ByteTrack: track.ByteTrackConfig{
 			HighScore: b.HighScore, LowScore: b.LowScore, NewTrackScore: b.NewTrackScore,
 			MatchIoU: b.MatchIoU, LowMatchIoU: b.LowMatchIoU, BirthHits: b.BirthHits,
-			LostTTL: b.LostTTL.Duration, PerClass: b.PerClass,
+			LostTTL: b.LostTTL.Duration, LostFrames: b.LostFrames, PerClass: b.PerClass,
+			Scores: track.ScoreCalibration{Mode: b.Scores.Mode, WarmupDetections: b.Scores.WarmupDetections,
+				HighQuantile: b.Scores.HighQuantile, NewQuantile: b.Scores.NewQuantile},
 			Motion: track.MotionConfig{MeasurementNoise: b.Motion.MeasurementNoise,
 				Acceleration: b.Motion.Acceleration, SizeAcceleration: b.Motion.SizeAcceleration},
 		},
@@ -193,7 +201,7 @@ func buildDetector(cfg *config.Config) (Detector, error) {
 	case config.DetectorMotion:
 		return motion.New(motionConfig(d)), nil
 	case config.DetectorONNX:
-		det, err := onnx.New(onnxConfig(cfg))
+		det, err := onnx.Load(onnxConfig(cfg))
 		if err != nil {
 			return nil, onnxError(cfg, err)
 		}

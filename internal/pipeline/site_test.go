@@ -24,7 +24,8 @@ func TestONNXErrorLocated(t *testing.T) {
 	_, err = onnx.New(onnxConfig(cfg))
 	err = onnxError(cfg, err)
 	want := `site.yaml:7: detector.onnx.layout: "` + model + `": output shapes output [batch,10] fit none of the supported layouts: ` +
-		"yolox-grid [B,N,5+C] (N = grid cells at strides 8/16/32), rows-obj [B,N,5+C], rows-noobj-chw [B,4+C,N], boxes-scores [B,N,1,4] + [B,N,C], e2e [B,K,6]"
+		"yolox-grid [B,N,5+C] (N = grid cells at strides 8/16/32), rows-obj [B,N,5+C], rows-noobj-chw [B,4+C,N], boxes-scores [B,N,1,4] + [B,N,C], e2e [B,K,6], " +
+		"anchor-heads 1-3 x [B,A*(5+C),H,W], anchor-heads-last 1-3 x [B,H,W,A*(5+C)]"
 	if !errors.Is(err, config.ErrInvalid) || err.Error() != want {
 		t.Fatalf("error\n got: %v\nwant: %s", err, want)
 	}

@@ -32,6 +32,14 @@ type sourceRun struct {
 	lostConn atomic.Int64
 	// restore is the saved rule state a live source continues from.
 	restore map[string]events.RuleState
+	// reloaded is set when new rules are in force; the worker holding the
+	// source switches before its next frame.
+	reloaded atomic.Bool
+	// view is what the operator's snapshots and preview show.
+	view view
+	// annotate writes the processed frames with the overlay (replay
+	// --annotate); nil otherwise.
+	annotate *annotator
 }
 
 // sourceSettings are a source's settings from the site file, in stage form.
@@ -60,6 +68,7 @@ type cursor struct {
 	seq       int64 // of the last frame processed
 	pts       time.Duration
 	captured  time.Time
+	untilDone bool // Options.Until reached
 }
 
 // schedState is the scheduler's view of a source.
@@ -74,13 +83,13 @@ type schedState struct {
 func (sr *sourceRun) setupRules(p *Pipeline, w, h int) {
 	st := &sr.stages
 	st.w, st.h = w, h
-	st.lines, st.zones = RulesFor(p.cfg, sr.id, w, h)
+	st.lines, st.zones = RulesFor(p.rulesConfig(), sr.id, w, h)
 	if st.gate != nil {
 		_ = st.gate.Close()
 		st.gate = nil
 	}
-	if g := sr.set.gate; g != nil {
-		st.gate = motion.NewGate(*g, w, h, gateRegion(st.lines, st.zones))
+	if sr.set.gate != nil {
+		st.gate = newGate(sr, st)
 	}
 	meta := events.Meta{Site: p.cfg.Site, Source: sr.id, Start: sr.set.start}
 	if sr.set.live {
@@ -93,6 +102,10 @@ func (sr *sourceRun) setupRules(p *Pipeline, w, h int) {
 	st.engine = events.NewEngine(meta, st.lines, st.zones)
 	st.engine.SetIntervals(intervalConfig(p.cfg))
 	st.engine.Restore(restore)
+}
+
+func newGate(sr *sourceRun, st *sourceStages) *motion.Gate {
+	return motion.NewGate(*sr.set.gate, st.w, st.h, gateRegion(st.lines, st.zones))
 }
 
 // admit says why a frame is not worth detecting ("" when it is).
@@ -120,6 +133,9 @@ func (sr *sourceRun) startTracker() error {
 // resetTracker starts a fresh tracker after the source's tracks ended (an
 // outage, a new frame size).
 func (sr *sourceRun) resetTracker() {
+	if sr.tracks != nil {
+		sr.tracks.restart()
+	}
 	if err := sr.startTracker(); err != nil {
 		panic(fmt.Sprintf("source %s: tracker settings accepted at start now refused: %v", sr.id, err))
 	}
@@ -127,6 +143,7 @@ func (sr *sourceRun) resetTracker() {
 
 // closeStages releases the per-source OpenCV objects.
 func (sr *sourceRun) closeStages() {
+	sr.view.close()
 	if sr.stages.gate != nil {
 		_ = sr.stages.gate.Close()
 		sr.stages.gate = nil

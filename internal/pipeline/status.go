@@ -99,7 +99,7 @@ func (p *Pipeline) Summary() Summary {
 		if st.EndedEarly {
 			s.EndedEarly = append(s.EndedEarly, st.ID)
 		}
-		for name, t := range zeroTotals(p.cfg, sr.id) {
+		for name, t := range zeroTotals(p.rulesConfig(), sr.id) {
 			s.Rules[name] = t
 		}
 		if sr.stages.engine != nil { // nil: no frame arrived (a camera that never came up)
@@ -134,7 +134,7 @@ func (p *Pipeline) Truth() map[string]events.Totals {
 				p.truth = map[string]events.Totals{}
 			}
 			w, h := sr.scene.Size()
-			lines, zones := RulesFor(p.cfg, sr.id, w, h)
+			lines, zones := RulesFor(p.rulesConfig(), sr.id, w, h)
 			for name, t := range SceneTruth(sr.scene, lines, zones) {
 				p.truth[name] = t
 			}

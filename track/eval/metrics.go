@@ -8,73 +8,73 @@ import (
 )
 
 // Metrics is the score of one sequence, or of several combined. Ratios are
-// fractions (0.7228, not 72.28 %); every value is finite. JSON keys follow
-// the names used by py-motmetrics and the MOTChallenge tables.
+// fractions (0.7228, not 72.28 %); every value is finite. What `tallyd score
+// --json` prints is its Summary.
 type Metrics struct {
-	Rules     Rules   `json:"rules"`         // rules applied; "" when combined sequences used different ones
-	IoU       float64 `json:"iou_threshold"` // CLEAR/identity threshold; 0 when combined sequences used different ones
-	Sequences int     `json:"num_sequences"`
-	Frames    int     `json:"num_frames"`
+	Rules     Rules   // rules applied; "" when combined sequences used different ones
+	IoU       float64 // CLEAR/identity threshold; 0 when combined sequences used different ones
+	Sequences int
+	Frames    int
 
 	// CLEAR MOT.
-	MOTA      float64 `json:"mota"`      // 1 − (FN + FP + IDSW) / GT
-	MOTP      float64 `json:"motp"`      // mean IoU of the matched pairs (higher is better)
-	MODA      float64 `json:"moda"`      // 1 − (FN + FP) / GT
-	SMOTA     float64 `json:"smota"`     // (Σ IoU of matches − FP − IDSW) / GT
-	Recall    float64 `json:"recall"`    // TP / GT
-	Precision float64 `json:"precision"` // TP / (TP + FP)
-	CLRF1     float64 `json:"clr_f1"`    // TP / (TP + (FN + FP) / 2)
+	MOTA      float64 // 1 − (FN + FP + IDSW) / GT
+	MOTP      float64 // mean IoU of the matched pairs (higher is better)
+	MODA      float64 // 1 − (FN + FP) / GT
+	SMOTA     float64 // (Σ IoU of matches − FP − IDSW) / GT
+	Recall    float64 // TP / GT
+	Precision float64 // TP / (TP + FP)
+	CLRF1     float64 // TP / (TP + (FN + FP) / 2)
 
-	GT         int `json:"num_objects"`            // ground-truth boxes scored
-	Pred       int `json:"num_predictions"`        // tracker boxes scored (after suppression)
-	GTIDs      int `json:"num_unique_objects"`     // distinct ground-truth ids scored
-	PredIDs    int `json:"num_unique_predictions"` // distinct tracker ids scored
-	Suppressed int `json:"num_suppressed"`         // tracker boxes dropped on distractors (mot17 rules)
-	TP         int `json:"num_detections"`         // matched pairs, switches included
-	FP         int `json:"num_false_positives"`
-	FN         int `json:"num_misses"`
-	IDSW       int `json:"num_switches"`
-	Frag       int `json:"num_fragmentations"`
-	MT         int `json:"mostly_tracked"`    // matched in more than 80 % of their frames
-	PT         int `json:"partially_tracked"` // the rest
-	ML         int `json:"mostly_lost"`       // matched in less than 20 % of their frames
+	GT         int // ground-truth boxes scored
+	Pred       int // tracker boxes scored (after suppression)
+	GTIDs      int // distinct ground-truth ids scored
+	PredIDs    int // distinct tracker ids scored
+	Suppressed int // tracker boxes dropped on distractors (mot17 rules)
+	TP         int // matched pairs, switches included
+	FP         int
+	FN         int
+	IDSW       int
+	Frag       int
+	MT         int // matched in more than 80 % of their frames
+	PT         int // the rest
+	ML         int // matched in less than 20 % of their frames
 
 	// Identity (global one-to-one matching of ids).
-	IDF1 float64 `json:"idf1"`
-	IDP  float64 `json:"idp"`
-	IDR  float64 `json:"idr"`
-	IDTP int     `json:"idtp"`
-	IDFP int     `json:"idfp"`
-	IDFN int     `json:"idfn"`
+	IDF1 float64
+	IDP  float64
+	IDR  float64
+	IDTP int
+	IDFP int
+	IDFN int
 
 	// HOTA family: the mean over the 19 thresholds in Alphas.
-	HOTA   float64      `json:"hota"`
-	DetA   float64      `json:"deta"`
-	AssA   float64      `json:"assa"`
-	DetRe  float64      `json:"detre"`
-	DetPr  float64      `json:"detpr"`
-	AssRe  float64      `json:"assre"`
-	AssPr  float64      `json:"asspr"`
-	LocA   float64      `json:"loca"`
-	OWTA   float64      `json:"owta"` // √(DetRe·AssA)
-	Alphas []AlphaScore `json:"alphas"`
+	HOTA   float64
+	DetA   float64
+	AssA   float64
+	DetRe  float64
+	DetPr  float64
+	AssRe  float64
+	AssPr  float64
+	LocA   float64
+	OWTA   float64 // √(DetRe·AssA)
+	Alphas []AlphaScore
 }
 
 // AlphaScore is the HOTA family at one localisation threshold α: a match
 // needs IoU ≥ α.
 type AlphaScore struct {
-	Alpha float64 `json:"alpha"`
-	HOTA  float64 `json:"hota"`
-	DetA  float64 `json:"deta"`
-	AssA  float64 `json:"assa"`
-	DetRe float64 `json:"detre"`
-	DetPr float64 `json:"detpr"`
-	AssRe float64 `json:"assre"`
-	AssPr float64 `json:"asspr"`
-	LocA  float64 `json:"loca"` // mean IoU of the matches; 1 when there are none
-	TP    int     `json:"tp"`
-	FN    int     `json:"fn"`
-	FP    int     `json:"fp"`
+	Alpha float64
+	HOTA  float64
+	DetA  float64
+	AssA  float64
+	DetRe float64
+	DetPr float64
+	AssRe float64
+	AssPr float64
+	LocA  float64 // mean IoU of the matches; 1 when there are none
+	TP    int
+	FN    int
+	FP    int
 }
 
 // Accumulator combines the scores of several sequences the way the
