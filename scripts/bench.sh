@@ -219,3 +219,12 @@ if [ "${TALLYD_BENCH_LIVE:-1}" != "0" ]; then
       | sed -n 's/^ *h264_bench_test.go:[0-9]*: //p; /^BenchmarkLiveH264/p'
   } | tee -a "$report"
 fi
+if [ "${TALLYD_BENCH_LIVE:-1}" != "0" ]; then
+  {
+    echo
+    echo "## H.264 cameras (10 fps, RTSP over loopback) held by YOLOX-Nano with the default session pool"
+    TALLYD_H264_DETECTOR=onnx TALLYD_H264_SIZES=640x360,768x576 TALLYD_H264_MAX=16 \
+      go test -tags matprofile -run '^$' -bench LiveH264 -benchtime 1x -timeout 40m ./internal/pipeline/ 2>&1 \
+      | sed -n 's/^ *h264_bench_test.go:[0-9]*: //p; /^BenchmarkLiveH264/p'
+  } | tee -a "$report"
+fi

@@ -55,6 +55,10 @@ type DelivererOptions struct {
 	// (unreachable then) or lost later is made. Its errors count as
 	// FailNoStream and are retried with the back-off.
 	Prepare func(ctx context.Context) error
+	// Acked, when set, is called with the subject of each event the stream
+	// acknowledged (duplicates included), on the Deliverer's goroutine:
+	// keep it cheap (per-subject metrics).
+	Acked func(subject string)
 }
 
 // FailureKind says why an event's delivery failed.

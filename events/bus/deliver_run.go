@@ -214,6 +214,9 @@ func (r *runner) acked(ack *jetstream.PubAck) {
 	if r.d.onAck != nil {
 		r.d.onAck(f.sent)
 	}
+	if r.d.o.Acked != nil {
+		r.d.o.Acked(f.subject)
+	}
 	r.round = 0
 	r.d.recovered()
 }

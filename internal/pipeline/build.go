@@ -313,7 +313,13 @@ func (p *Pipeline) openOutputs() error {
 	}
 	if !useJS {
 		pub := bus.NewPublisher(nc, n.Prefix)
-		d.core = newQueue("nats", queueSize, func(it item) error { return pub.PublishRaw(it.subject, it.data) }, p.log)
+		d.core = newQueue("nats", queueSize, func(it item) error {
+			if err := pub.PublishRaw(it.subject, it.data); err != nil {
+				return err
+			}
+			d.acks.add(it.subject)
+			return nil
+		}, p.log)
 		p.drains = append(p.drains, pub.Close)
 	}
 	if err := os.MkdirAll(p.cfg.Resolve(p.cfg.StateDir), 0o700); err != nil {
@@ -386,6 +392,7 @@ func (p *Pipeline) openOutbox(d *delivery, js jetstream.JetStream) error {
 			_, err := bus.EnsureStream(ctx, js, streamSettings(p.cfg))
 			return err
 		},
+		Acked: d.acks.add,
 	}, p.log)
 	return nil
 }

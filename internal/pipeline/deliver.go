@@ -39,6 +39,7 @@ type delivery struct {
 
 	produced  atomic.Int64
 	unencoded atomic.Int64 // events that could not be written as JSON
+	acks      ackCounts    // acknowledged (JetStream) or handed over (core NATS), by subject
 	drops     *repeat.Reporter
 
 	cancel     context.CancelFunc

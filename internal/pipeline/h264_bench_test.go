@@ -47,6 +47,14 @@ func BenchmarkLiveH264(b *testing.B) {
 	if v := os.Getenv("TALLYD_H264_SIZES"); v != "" {
 		sizes = v
 	}
+	// TALLYD_H264_DETECTOR=onnx runs YOLOX-Nano with the default session
+	// pool (one single-thread session and detect worker per core) instead
+	// of the motion detector with two workers.
+	det, workers := "detector:\n  motion: {min_area: 200}\n", 2
+	if os.Getenv("TALLYD_H264_DETECTOR") == "onnx" {
+		det = strings.Replace(onnxBlock(b), "threads: {intra: 2, inter: 1}", "threads: {intra: 1, inter: 1}", 1)
+		workers = 0
+	}
 	for _, size := range strings.Split(sizes, ",") {
 		var w, h int
 		if _, err := fmt.Sscanf(size, "%dx%d", &w, &h); err != nil {
@@ -69,7 +77,7 @@ func BenchmarkLiveH264(b *testing.B) {
 				b.Logf("%-8s %-9s %-9s %-9s %-9s %-9s %-13s %s", "cameras", "fps each", "min fps", "age p50", "age p99", "dropped", "CPU ms/frame", "open (s)")
 				results := map[int]h264Run{}
 				try := func(n int) bool {
-					r := runH264Cameras(b, aus, fps, n, step)
+					r := runH264Cameras(b, aus, fps, n, step, det, workers)
 					results[n] = r
 					b.Logf("%-8d %-9.2f %-9.2f %-9.0f %-9.0f %-9d %-13.2f %.1f", n, r.meanFPS, r.minFPS, r.p50, r.p99, r.dropped, r.cpuMsPerFrame, r.build.Seconds())
 					return r.held()
@@ -114,8 +122,8 @@ type h264Run struct {
 func (r h264Run) held() bool { return r.minFPS >= 9.5 && r.p99 < 1000 }
 
 // runH264Cameras serves n H.264 cameras at fps and runs the daemon with the
-// motion detector on them for d; camera i starts i seconds into the loop.
-func runH264Cameras(b *testing.B, aus [][]byte, fps, n int, d time.Duration) h264Run {
+// detector block det on them for d; camera i starts i seconds into the loop.
+func runH264Cameras(b *testing.B, aus [][]byte, fps, n int, d time.Duration, det string, workers int) h264Run {
 	var sb strings.Builder
 	sb.WriteString("site: bench\nsources:\n")
 	var servers []*testsrv.RTSPServer
@@ -126,14 +134,14 @@ func runH264Cameras(b *testing.B, aus [][]byte, fps, n int, d time.Duration) h26
 		servers = append(servers, srv)
 		fmt.Fprintf(&sb, "  - {id: cam%d, url: %q, fps: %d, max_age: 1s}\n", i, srv.URL(), fps)
 	}
-	sb.WriteString("detector:\n  motion: {min_area: 200}\nrules:\n")
+	sb.WriteString(det + "rules:\n")
 	for i := range n {
 		fmt.Fprintf(&sb, "  - {name: gate%d, source: cam%d, line: [[0.15, 0.55], [0.85, 0.55]]}\n", i, i)
 	}
 	sb.WriteString("output:\n  nats:\n    embedded: {port: 0}\nlog: {level: error}\n")
 	cfg := siteFile(b, sb.String())
 	t0 := time.Now()
-	p, err := Build(cfg, Options{Pace: capture.PaceRealtime, Workers: 2})
+	p, err := Build(cfg, Options{Pace: capture.PaceRealtime, Workers: workers})
 	if err != nil {
 		b.Fatal(err)
 	}

@@ -66,6 +66,7 @@ var (
 	descOcc       = prometheus.NewDesc("tallyd_zone_occupancy", "Tracks inside a zone now.", []string{"source", "rule"}, nil)
 	descSrcEv     = prometheus.NewDesc("tallyd_source_events_total", "Events a source's rules produced in this run.", []string{"source"}, nil)
 	descProduced  = prometheus.NewDesc("tallyd_events_produced_total", "Events the rules produced in this run.", nil, nil)
+	descRuleAcked = prometheus.NewDesc("tallyd_rule_events_acked_total", "Events of a rule acknowledged by the stream (or handed to the NATS server with JetStream off), by kind; events left in the outbox by an earlier run included.", []string{"source", "rule", "kind"}, nil)
 	descAcked     = prometheus.NewDesc("tallyd_events_acked_total", "Events acknowledged by the stream (or handed to the NATS server with JetStream off).", nil, nil)
 	descPending   = prometheus.NewDesc("tallyd_events_pending", "Events waiting in the outbox or the publisher's queue.", nil, nil)
 	descLost      = prometheus.NewDesc("tallyd_events_dropped_total", "Events lost: a full queue or outbox dropped them, or they could not be encoded.", nil, nil)
@@ -123,6 +124,9 @@ func (c *metricsCollector) Collect(ch chan<- prometheus.Metric) {
 				ch <- prometheus.MustNewConstMetric(descOcc, prometheus.GaugeValue, float64(occ[rule]), id, rule)
 			}
 		}
+	}
+	for k, n := range p.out.acks.byRule() {
+		ch <- prometheus.MustNewConstMetric(descRuleAcked, prometheus.CounterValue, float64(n), k.source, k.rule, k.kind)
 	}
 	d := p.out.stats()
 	ch <- prometheus.MustNewConstMetric(descProduced, prometheus.CounterValue, float64(d.Produced))

@@ -144,6 +144,10 @@ func TestMetricsEqualSummary(t *testing.T) {
 		{"tallyd_rule_events_total", map[string]string{"rule": "gate", "kind": "out"}, int64(s.Rules["gate"].Out)},
 		{"tallyd_rule_events_total", map[string]string{"rule": "machines", "kind": "enter"}, int64(s.Rules["machines"].Enter)},
 		{"tallyd_rule_events_total", map[string]string{"rule": "machines", "kind": "exit"}, int64(s.Rules["machines"].Exit)},
+		// Every event reached the stream by the end of the replay: acknowledged per rule and kind.
+		{"tallyd_rule_events_acked_total", map[string]string{"rule": "gate", "kind": "in"}, int64(s.Rules["gate"].In)},
+		{"tallyd_rule_events_acked_total", map[string]string{"rule": "gate", "kind": "out"}, int64(s.Rules["gate"].Out)},
+		{"tallyd_rule_events_acked_total", map[string]string{"rule": "machines", "kind": "enter"}, int64(s.Rules["machines"].Enter)},
 	} {
 		if got := value(c.name, c.labels); got != float64(c.want) {
 			t.Errorf("%s%v = %g, summary says %d", c.name, c.labels, got, c.want)
