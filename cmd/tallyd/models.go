@@ -363,7 +363,7 @@ func measureCandidate(ctx context.Context, cfg *config.Config, src config.Source
 			cc.Rules = append(cc.Rules, r)
 		}
 	}
-	det, err := onnx.Load(pipeline.ONNXConfig(&cc))
+	det, err := onnx.New(pipeline.ONNXConfig(&cc))
 	if err != nil {
 		return candidateResult{}, err
 	}

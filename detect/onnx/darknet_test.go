@@ -96,7 +96,7 @@ func TestDarknetMatchesOpenCVRegion(t *testing.T) {
 func TestDarknetLoad(t *testing.T) {
 	cfg := testConfig(t, fixture("darknet-tiny.cfg"), EngineOpenCV)
 	cfg.Names, cfg.RGB, cfg.Scale, cfg.ScoreThreshold = fixture("fixture.names"), true, 1, 0.05
-	d, err := Load(cfg)
+	d, err := New(cfg)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -139,7 +139,7 @@ func TestDarknetErrors(t *testing.T) {
 		t.Run(tt.name, func(t *testing.T) {
 			cfg := testConfig(t, fixture(tt.model), EngineOpenCV)
 			tt.mod(&cfg)
-			d, err := Load(cfg)
+			d, err := New(cfg)
 			if err == nil {
 				_ = d.Close()
 				t.Fatal("no error")
@@ -163,7 +163,7 @@ func TestDarknetBadCfg(t *testing.T) {
 		t.Fatal(err)
 	}
 	cfg := testConfig(t, cfgPath, EngineOpenCV)
-	_, err := Load(cfg)
+	_, err := New(cfg)
 	want := "model: " + cfgPath + ":7: [yolo] gets 15 channels from the layer before it, want 2 anchors * (5 + 3 classes) = 16"
 	if err == nil || err.Error() != want || !errors.Is(err, ErrModel) {
 		t.Fatalf("error\n got: %v\nwant: %s", err, want)

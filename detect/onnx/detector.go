@@ -4,7 +4,6 @@ import (
 	"context"
 	"fmt"
 	"math"
-	"os"
 	"runtime"
 	"sync"
 	"time"
@@ -58,13 +57,9 @@ func New(cfg Config) (*Detector, error) {
 	if !(cfg.Scale > 0) || !(cfg.Std[0] > 0 && cfg.Std[1] > 0 && cfg.Std[2] > 0) {
 		return nil, settingErr("scale", fmt.Sprintf("scale and std must be positive (found scale %v, std %v); start from Defaults()", cfg.Scale, cfg.Std))
 	}
-	data, err := os.ReadFile(cfg.Model)
+	mi, err := readModel(cfg)
 	if err != nil {
-		return nil, modelErr("model", fmt.Sprintf("cannot open %q: %v", cfg.Model, unwrapPathErr(err)))
-	}
-	mi, err := ParseModel(data)
-	if err != nil {
-		return nil, modelErr("model", fmt.Sprintf("%q is %v (want a protobuf ModelProto with a graph)", cfg.Model, err))
+		return nil, err
 	}
 	in, w, h, batch, err := checkInput(cfg, mi)
 	if err != nil {
@@ -77,8 +72,16 @@ func New(cfg Config) (*Detector, error) {
 	if err != nil {
 		return nil, err
 	}
-	plan, err := ChooseLayout(mi.Outputs, w, h, cfg.Layout, len(names))
+	// Raw anchor heads (and Darknet models) are planned with their anchors;
+	// every other layout from the output shapes alone.
+	raw, err := rawHeadPlan(cfg, mi, w, h, len(names))
 	if err != nil {
+		return nil, err
+	}
+	var plan layoutPlan
+	if raw != nil {
+		plan = *raw
+	} else if plan, err = ChooseLayout(mi.Outputs, w, h, cfg.Layout, len(names)); err != nil {
 		return nil, modelErr("layout", fmt.Sprintf("%q: %v", cfg.Model, err))
 	}
 	classes := plan.Classes

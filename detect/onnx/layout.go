@@ -58,7 +58,8 @@ const layoutHelp = "yolox-grid [B,N,5+C] (N = grid cells at strides 8/16/32), ro
 // grid count for the input size, else rows-obj; with A < D it is
 // rows-noobj-chw. One to three outputs [B,A*(5+C),H,W] (or channels last)
 // whose grids divide the input by whole strides are raw anchor heads: those
-// need anchors, which New does not take (Load does), so auto asks for them.
+// need anchors, which the shapes do not give (New plans them with the
+// configured anchors, rawHeadPlan), so auto asks for them.
 func ChooseLayout(outputs []TensorInfo, inW, inH int, want Layout, names int) (layoutPlan, error) {
 	for _, o := range outputs {
 		if o.ElemType != elemFloat {

@@ -255,7 +255,7 @@ func (d *decoder) rawHeads(outs []tensor, i int, dst []candidate) ([]candidate, 
 	last := d.plan.Layout == LayoutAnchorHeadsLast
 	for _, hd := range d.plan.Heads {
 		if hd.Anchors == nil {
-			return dst, fmt.Errorf("%s: no anchors; %s (open the model with onnx.Load)", d.plan.Layout, headsHelp)
+			return dst, fmt.Errorf("%s: no anchors; %s (open the model with onnx.New and anchors)", d.plan.Layout, headsHelp)
 		}
 		if hd.Out >= len(outs) {
 			return dst, fmt.Errorf("want %d outputs, got %d", hd.Out+1, len(outs))

@@ -153,7 +153,7 @@ func TestRawHeadFixtures(t *testing.T) {
 					cfg := testConfig(t, fixture(model), eng)
 					cfg.Names, cfg.ScoreThreshold = fixture("fixture.names"), 0.1
 					cfg.Anchors, cfg.ScaleXY = fixtureAnchors, []float64{1, scale}
-					d, err := Load(cfg)
+					d, err := New(cfg)
 					if err != nil {
 						t.Fatal(err)
 					}
@@ -202,7 +202,7 @@ func checkDetsTol(t *testing.T, got, want []detect.Detection, tol float64) {
 func TestRawHeadClassCountFromAnchors(t *testing.T) {
 	cfg := testConfig(t, fixture("anchor-heads.onnx"), EngineOpenCV)
 	cfg.Anchors = fixtureAnchors
-	d, err := Load(cfg)
+	d, err := New(cfg)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -258,7 +258,7 @@ func TestRawHeadErrors(t *testing.T) {
 		t.Run(tt.name, func(t *testing.T) {
 			cfg := testConfig(t, fixture(tt.model), EngineOpenCV)
 			tt.mod(&cfg)
-			d, err := Load(cfg)
+			d, err := New(cfg)
 			if err == nil {
 				_ = d.Close()
 				t.Fatal("no error")

@@ -91,7 +91,7 @@ func (p *Pipeline) process(ctx context.Context, jobs []job) error {
 			p.publish(sr, f.Captured, evs)
 			p.out.state.update(sr.id, sr.stages.engine.State(f.PTS))
 		}
-		sr.view.update(f.Mat, f.Seq, f.PTS, &sr.stages, res, p.opts.Until != nil)
+		sr.view.update(f.Mat, f.Seq, f.PTS, res, p.opts.Until != nil)
 		if u := p.opts.Until; u != nil && f.PTS >= *u && !sr.cursor.untilDone {
 			sr.cursor.untilDone = true
 			if p.untilLeft.Add(-1) == 0 {

@@ -2,6 +2,7 @@ package pipeline
 
 import (
 	"runtime/debug"
+	"sync"
 	"time"
 
 	"github.com/nats-io/nats.go"
@@ -79,10 +80,7 @@ func (c *metricsCollector) Describe(ch chan<- *prometheus.Desc) { prometheus.Des
 
 func (c *metricsCollector) Collect(ch chan<- prometheus.Metric) {
 	p := c.p
-	version, gov := "unknown", "unknown"
-	if bi, ok := debug.ReadBuildInfo(); ok {
-		version, gov = bi.Main.Version, bi.GoVersion
-	}
+	version, gov := buildInfo()
 	ch <- prometheus.MustNewConstMetric(descBuild, prometheus.GaugeValue, 1, version, gov)
 	for i, st := range p.Status() {
 		sr := p.sources[i]
@@ -141,6 +139,14 @@ func (c *metricsCollector) Collect(ch chan<- prometheus.Metric) {
 		ch <- prometheus.MustNewConstMetric(descJSONL, prometheus.CounterValue, float64(j.Failed), "failed")
 	}
 }
+
+// buildInfo is the binary's version and Go version, read once.
+var buildInfo = sync.OnceValues(func() (string, string) {
+	if bi, ok := debug.ReadBuildInfo(); ok {
+		return bi.Main.Version, bi.GoVersion
+	}
+	return "unknown", "unknown"
+})
 
 // sourceUp: the source delivers frames (a recording or scene running, or a
 // live source whose link is up).

@@ -25,6 +25,9 @@ func (p *Pipeline) publish(sr *sourceRun, captured time.Time, evs []events.Event
 		p.out.offer(*ev)
 		sr.count.events.Add(1)
 	}
+	if len(evs) > 0 {
+		sr.view.setCounts(&sr.stages)
+	}
 }
 
 // ReopenFiles reopens the JSON-lines file (after log rotation moved it).

@@ -120,6 +120,7 @@ func (p *Pipeline) applyReload(sr *sourceRun) {
 		st.gate = newGate(sr, st)
 	}
 	p.publish(sr, c.captured, evs)
+	sr.view.setCounts(st) // also when the change produced no event (a removed line)
 	p.out.state.update(sr.id, st.engine.State(c.pts))
 	if len(ch.Changed)+len(ch.Added)+len(ch.Removed) > 0 {
 		p.log.Info("rules switched", "source", sr.id, "kept", ch.Kept, "changed", ch.Changed, "added", ch.Added, "removed", ch.Removed)

@@ -201,7 +201,7 @@ func buildDetector(cfg *config.Config) (Detector, error) {
 	case config.DetectorMotion:
 		return motion.New(motionConfig(d)), nil
 	case config.DetectorONNX:
-		det, err := onnx.Load(onnxConfig(cfg))
+		det, err := onnx.New(onnxConfig(cfg))
 		if err != nil {
 			return nil, onnxError(cfg, err)
 		}

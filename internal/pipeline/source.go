@@ -102,6 +102,7 @@ func (sr *sourceRun) setupRules(p *Pipeline, w, h int) {
 	st.engine = events.NewEngine(meta, st.lines, st.zones)
 	st.engine.SetIntervals(intervalConfig(p.cfg))
 	st.engine.Restore(restore)
+	sr.view.setCounts(st)
 }
 
 func newGate(sr *sourceRun, st *sourceStages) *motion.Gate {

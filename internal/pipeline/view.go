@@ -44,17 +44,12 @@ type view struct {
 	w, h      int
 }
 
-// update records a processed frame; the image is copied at most every
+// update records a processed frame: the image and its tracks at most every
 // viewEvery, or every time with every.
-func (v *view) update(f gocv.Mat, seq int64, pts time.Duration, st *sourceStages, res track.Result, every bool) {
+func (v *view) update(f gocv.Mat, seq int64, pts time.Duration, res track.Result, every bool) {
 	now := time.Now()
-	totals := st.engine.Totals()
-	occ := st.engine.Occupancy()
 	v.mu.Lock()
 	defer v.mu.Unlock()
-	v.totals, v.occupancy = totals, occ
-	v.w, v.h = st.w, st.h
-	v.lines, v.zones = st.lines, st.zones
 	if !every && v.has && now.Sub(v.at) < viewEvery {
 		return
 	}
@@ -65,6 +60,17 @@ func (v *view) update(f gocv.Mat, seq int64, pts time.Duration, st *sourceStages
 	v.at, v.seq, v.pts = now, seq, pts
 	v.active = append(v.active[:0], res.Active...)
 	v.lost = append(v.lost[:0], res.Lost...)
+}
+
+// setCounts copies the source's rules and counts; called when they change
+// (events published, rules converted or reloaded), not per frame.
+func (v *view) setCounts(st *sourceStages) {
+	totals, occ := st.engine.Totals(), st.engine.Occupancy()
+	v.mu.Lock()
+	defer v.mu.Unlock()
+	v.totals, v.occupancy = totals, occ
+	v.w, v.h = st.w, st.h
+	v.lines, v.zones = st.lines, st.zones
 }
 
 // counts returns the totals, occupancy and frame size seen last.
