@@ -23,4 +23,7 @@ const (
 	StateConnecting State = "connecting"  // live: opening the source
 	StateUp         State = "up"          // live: frames are arriving
 	StateBackingOff State = "backing_off" // live: waiting before the next attempt
+	// StateStandby is a shared source this daemon does not read now:
+	// another daemon of the site holds it (see Standby).
+	StateStandby State = "standby"
 )

@@ -34,6 +34,12 @@ const (
 	// KindReset says a rule starts counting from 0: it is new, or its
 	// definition changed at a reload (Data.Reason says which).
 	KindReset Kind = "reset"
+	// KindHandover says a source got a new holder: another daemon of a
+	// shared site now counts it (Data.Handover says who and why).
+	KindHandover Kind = "handover"
+	// KindOccupancy says a site-wide area's occupancy or totals changed
+	// (Data.Area holds the sums and the zones behind them).
+	KindOccupancy Kind = "occupancy"
 )
 
 // Event types (the CloudEvents "type" attribute).
@@ -46,6 +52,10 @@ const (
 	TypeLineTotals = "tallyd.line.totals"
 	TypeZoneTotals = "tallyd.zone.totals"
 	TypeRuleReset  = "tallyd.rule.reset"
+	// TypeSourceHandover is the type of a KindHandover event.
+	TypeSourceHandover = "tallyd.source.handover"
+	// TypeAreaOccupancy is the type of a KindOccupancy event.
+	TypeAreaOccupancy = "tallyd.area.occupancy"
 )
 
 // Reason says why a zone stay was closed by something other than the track
@@ -61,6 +71,9 @@ const (
 	// a reset event's cause.
 	ReasonRuleChanged Reason = "rule_changed"
 	ReasonRuleNew     Reason = "rule_new"
+	// ReasonHandover: a zone stay closed because the source moved to
+	// another daemon of a shared site (see Engine.Inherit).
+	ReasonHandover Reason = "handover"
 )
 
 // typeOfKind maps each kind of a single event to its CloudEvents type.
@@ -76,7 +89,7 @@ var typeOfKind = map[Kind]string{
 var kindOfType = map[string]Kind{
 	TypeLineIn: KindIn, TypeLineOut: KindOut, TypeZoneEnter: KindEnter, TypeZoneExit: KindExit,
 	TypeZoneDwell: KindDwell, TypeLineTotals: KindTotals, TypeZoneTotals: KindTotals,
-	TypeRuleReset: KindReset,
+	TypeRuleReset: KindReset, TypeSourceHandover: KindHandover, TypeAreaOccupancy: KindOccupancy,
 }
 
 // Event is one counting event in CloudEvents 1.0 structured-mode JSON.
@@ -103,7 +116,7 @@ type Data struct {
 	Frame      int64       `json:"frame"`                 // the frame that caused it (totals: the first frame past the interval)
 	Box        *[4]float64 `json:"box,omitempty"`         // x1,y1,x2,y2 in source pixels; not in totals
 	DwellS     *float64    `json:"dwell_s,omitempty"`     // exit and dwell: time inside so far
-	Occupancy  *int        `json:"occupancy,omitempty"`   // enter and exit: tracks inside after the frame
+	Occupancy  *int        `json:"occupancy,omitempty"`   // enter and exit: tracks inside after the frame; occupancy: the area's
 	Reason     Reason      `json:"reason,omitempty"`      // exit: why the stay was closed, if not by leaving
 	ThresholdS *float64    `json:"threshold_s,omitempty"` // dwell: the rule's threshold
 	// FrameAgeMS is how old the frame behind the event was when the event was
@@ -111,6 +124,87 @@ type Data struct {
 	FrameAgeMS *float64 `json:"frame_age_ms,omitempty"`
 	// Interval is set on totals events only.
 	Interval *Interval `json:"interval,omitempty"`
+	// Lease is the fencing token of the hold that produced the event on a
+	// site shared by several daemons; 0 when the site is not shared. Not
+	// part of the id.
+	Lease uint64 `json:"lease,omitempty"`
+	// Handover is set on handover events only.
+	Handover *HandoverData `json:"handover,omitempty"`
+	// Area is set on area occupancy events only.
+	Area *AreaData `json:"area,omitempty"`
+}
+
+// Hand-over causes (HandoverData.Cause).
+const (
+	HandoverFirst    = "first"    // no holder was known before
+	HandoverReleased = "released" // the previous holder let the source go cleanly
+	HandoverExpired  = "expired"  // the previous holder stopped renewing its lease
+)
+
+// HandoverData is the payload of a handover event: a source of a shared site
+// got a new holder.
+type HandoverData struct {
+	From  string  `json:"from,omitempty"` // daemon that held the source before; "" when none is known
+	To    string  `json:"to"`             // daemon that holds it now
+	Cause string  `json:"cause"`          // HandoverFirst, HandoverReleased or HandoverExpired
+	GapS  float64 `json:"gap_s"`          // seconds without a holder: from the previous holder's last sign of life to this holder's first frame
+}
+
+// AreaData is the payload of an area occupancy event: the sums over the
+// zones, on any sources, that name the area.
+type AreaData struct {
+	Name      string     `json:"name"`
+	Occupancy int        `json:"occupancy"` // sum of its zones' occupancies
+	Enter     int        `json:"enter"`     // sum of its zones' enter totals
+	Exit      int        `json:"exit"`      // sum of its zones' exit totals
+	Zones     []AreaZone `json:"zones"`
+}
+
+// AreaZone is one zone's share of an area.
+type AreaZone struct {
+	Source    string `json:"source"`
+	Rule      string `json:"rule"`
+	Occupancy int    `json:"occupancy"`
+	Enter     int    `json:"enter"`
+	Exit      int    `json:"exit"`
+}
+
+// HandoverEvent is the event saying that source m.Source got a new holder,
+// at source time ts of frame (the new holder's first frame). Its id depends
+// on m.Run, so every hold of a live source gives its own id.
+func HandoverEvent(m Meta, frame int64, ts time.Duration, h HandoverData) Event {
+	return Event{
+		SpecVersion:     SpecVersion,
+		ID:              EventID(m.Site, m.Source, "", KindHandover, 0, frame, m.Run+"/handover"),
+		Source:          EventSource(m.Site, m.Source),
+		Type:            TypeSourceHandover,
+		Time:            m.Start.Add(ts).UTC().Round(time.Millisecond),
+		DataContentType: ContentType,
+		Data: Data{
+			Site: m.Site, Source: m.Source, Kind: KindHandover,
+			SourceTime: *seconds(ts), Frame: frame, Handover: &h,
+		},
+	}
+}
+
+// AreaEvent is the event carrying area a's occupancy and totals at time at.
+// seq tells the events of one keeper apart (it counts them) and run the
+// keepers (a new keeper of the area uses a new run), so ids never repeat.
+// The CloudEvents source is "/tallyd/<site>/area/<name>", the subject the
+// area's name; Data.Source and Data.Rule are empty.
+func AreaEvent(site string, at time.Time, seq int64, run string, a AreaData) Event {
+	a.Zones = append([]AreaZone(nil), a.Zones...)
+	occ := a.Occupancy
+	return Event{
+		SpecVersion:     SpecVersion,
+		ID:              EventID(site, "area/"+a.Name, "", KindOccupancy, 0, seq, run),
+		Source:          EventSource(site, "area/"+a.Name),
+		Type:            TypeAreaOccupancy,
+		Subject:         a.Name,
+		Time:            at.UTC().Round(time.Millisecond),
+		DataContentType: ContentType,
+		Data:            Data{Site: site, Kind: KindOccupancy, Occupancy: &occ, Area: &a},
+	}
 }
 
 // EventSource is the CloudEvents source attribute for a site and a source.
@@ -141,9 +235,22 @@ func EventID(site, source, rule string, kind Kind, trackID, frame int64, run str
 }
 
 // NATSSubject is the subject the event is published on:
-// "<prefix>.<site>.<source>.<rule>.<kind>". Tokens are not checked here; the
+// "<prefix>.<site>.<source>.<rule>.<kind>"; a handover event's is
+// "<prefix>.<site>.<source>.handover" and an area's
+// "<prefix>.<site>.area.<name>.occupancy" (no rule event ends in
+// "occupancy", so the two never collide). Tokens are not checked here; the
 // bus package refuses to publish on an invalid subject.
 func (e Event) NATSSubject(prefix string) string {
+	switch e.Data.Kind {
+	case KindHandover:
+		return strings.Join([]string{prefix, e.Data.Site, e.Data.Source, string(KindHandover)}, ".")
+	case KindOccupancy:
+		name := e.Subject
+		if e.Data.Area != nil {
+			name = e.Data.Area.Name
+		}
+		return strings.Join([]string{prefix, e.Data.Site, "area", name, string(KindOccupancy)}, ".")
+	}
 	return strings.Join([]string{prefix, e.Data.Site, e.Data.Source, e.Data.Rule, string(e.Data.Kind)}, ".")
 }
 
@@ -170,7 +277,8 @@ func (e *AttrError) Unwrap() error { return ErrMalformed }
 // case); specversion must be "1.0"; id, source and type must be non-empty
 // strings; type must be a tallyd type; datacontenttype, when present, must be
 // JSON; time, when present, RFC 3339; data must be an object whose kind
-// matches type. Unknown attributes (CloudEvents extensions) are accepted and
+// matches type; a handover event must carry data.handover and an occupancy
+// event data.area. Unknown attributes (CloudEvents extensions) are accepted and
 // dropped.
 func Parse(b []byte) (Event, error) {
 	if !bytes.HasPrefix(bytes.TrimLeft(b, " \t\r\n"), []byte("{")) {
@@ -228,6 +336,12 @@ func Parse(b []byte) (Event, error) {
 	}
 	if ev.Data.Kind != wantKind {
 		return Event{}, &AttrError{"data.kind", fmt.Sprintf("want %q for type %q, found %q", wantKind, ev.Type, ev.Data.Kind)}
+	}
+	switch {
+	case wantKind == KindHandover && ev.Data.Handover == nil:
+		return Event{}, &AttrError{"data.handover", "missing in a handover event"}
+	case wantKind == KindOccupancy && ev.Data.Area == nil:
+		return Event{}, &AttrError{"data.area", "missing in an occupancy event"}
 	}
 	return ev, nil
 }

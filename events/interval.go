@@ -1,6 +1,8 @@
 package events
 
 import (
+	"cmp"
+	"slices"
 	"time"
 )
 
@@ -50,6 +52,16 @@ type RuleState struct {
 	DayOf     string    `json:"day_of,omitempty"`
 	Occupancy int       `json:"occupancy"` // zones: tracks inside now
 	At        time.Time `json:"at"`        // event time of the state
+	// Open lists a zone's stays open at At, ordered by track id, so that
+	// the daemon taking the source over can close them (see Inherit).
+	Open []OpenStay `json:"open,omitempty"`
+}
+
+// OpenStay is one track inside a zone.
+type OpenStay struct {
+	Track int64     `json:"track"`
+	Class string    `json:"class,omitempty"`
+	Since time.Time `json:"since"` // event time of the enter
 }
 
 // intervals is an engine's interval bookkeeping.
@@ -116,6 +128,56 @@ func (e *Engine) Restore(states map[string]RuleState) {
 	}
 }
 
+// Inherit is Restore for a daemon that takes a source over from another
+// one (a shared site): it restores the totals and day counts of states, and
+// closes every stay the previous holder left open (RuleState.Open) with an
+// exit event of reason handover at frame and source time ts: its track id and
+// class, DwellS from the stay's Since to the event time (never negative), and
+// the zone's occupancy counting down to 0 as the stays close. Each exit is
+// counted in its rule's Exit total (and the interval and day counts). The
+// events come zone by zone in configuration order, then by track id; their
+// ids use the run part Meta.Run+"/inherited", so they never collide with
+// the ids the engine makes itself. Call it before the first Step.
+func (e *Engine) Inherit(states map[string]RuleState, frame int64, ts time.Duration) []Event {
+	e.Restore(states)
+	at := e.meta.Start.Add(ts).UTC().Round(time.Millisecond)
+	var out []Event
+	for _, z := range e.zones {
+		s, ok := states[z.rule.Name]
+		if !ok || len(s.Open) == 0 {
+			continue
+		}
+		open := slices.SortedStableFunc(slices.Values(s.Open), func(a, b OpenStay) int { return cmp.Compare(a.Track, b.Track) })
+		left := len(open)
+		for _, o := range open {
+			left--
+			z.totals.Exit++
+			n := left
+			ev := Event{
+				SpecVersion:     SpecVersion,
+				ID:              EventID(e.meta.Site, e.meta.Source, z.rule.Name, KindExit, o.Track, frame, e.meta.Run+"/inherited"),
+				Source:          EventSource(e.meta.Site, e.meta.Source),
+				Type:            TypeZoneExit,
+				Subject:         z.rule.Name,
+				Time:            at,
+				DataContentType: ContentType,
+				Data: Data{
+					Site: e.meta.Site, Source: e.meta.Source, Rule: z.rule.Name, Kind: KindExit,
+					TrackID: o.Track, Class: o.Class, SourceTime: *seconds(ts), Frame: frame,
+					DwellS: seconds(max(at.Sub(o.Since), 0)), Occupancy: &n, Reason: ReasonHandover,
+				},
+			}
+			out = append(out, ev)
+		}
+	}
+	if e.intervals != nil {
+		// Count the exits in the day of their time, as the first Step will.
+		e.intervals.newDay(e.meta.Start.Add(ts))
+		e.intervals.count(e, out)
+	}
+	return out
+}
+
 // State is every rule's running state at event time ts, for Restore and for
 // dashboards.
 func (e *Engine) State(ts time.Duration) map[string]RuleState {
@@ -125,7 +187,14 @@ func (e *Engine) State(ts time.Duration) map[string]RuleState {
 		m[l.rule.Name] = RuleState{Totals: l.totals, At: at}
 	}
 	for _, z := range e.zones {
-		m[z.rule.Name] = RuleState{Totals: z.totals, Occupancy: z.occupancy, At: at}
+		s := RuleState{Totals: z.totals, Occupancy: z.occupancy, At: at}
+		for _, id := range sortedKeys(z.tracks) {
+			if st := z.tracks[id]; st.inside {
+				s.Open = append(s.Open, OpenStay{Track: id, Class: st.last.Class,
+					Since: e.meta.Start.Add(st.enterTS).UTC().Round(time.Millisecond)})
+			}
+		}
+		m[z.rule.Name] = s
 	}
 	if e.intervals != nil {
 		for name, ri := range e.intervals.rules {

@@ -211,6 +211,20 @@ fi
   go test -tags matprofile -run '^$' -bench H264Decode -benchtime 3x -count "$runs" ./capture/ 2>&1 | grep '^BenchmarkH264Decode'
   echo "load average after: $(loadavg)"
 } | tee -a "$report"
+# A site over several daemons (internal/fleet): 3-node JetStream cluster on
+# loopback inside the test binary, R3 buckets and stream (README "Running a
+# site on several machines"). About 2 minutes.
+{
+  echo
+  echo "## Shared site: hand-over, lease traffic, R3 publish (3-node cluster on loopback)"
+  echo "load average before: $(loadavg)"
+  go test -run '^$' -bench 'BenchmarkHandover|BenchmarkLeaseTraffic' -benchtime 1x -timeout 10m ./internal/fleet/ 2>&1 | grep '^Benchmark'
+  go test -run '^$' -bench 'BenchmarkR3Publish' -count "$runs" -timeout 10m ./internal/fleet/ 2>&1 | grep '^Benchmark'
+  echo "load average after: $(loadavg)"
+  echo "(Handover: kill = a member stops renewing, TTL 2 s, 20 kills, p50/p99/max ms from the kill to the next holder's Start."
+  echo " LeaseTraffic: one member holding 2 of 6 sources among 3 members, its connection's msgs and bytes per second."
+  echo " R3Publish: 300-byte events with Nats-Msg-Id, 1024 acknowledgements in flight.)"
+} | tee -a "$report"
 if [ "${TALLYD_BENCH_LIVE:-1}" != "0" ]; then
   {
     echo

@@ -51,6 +51,8 @@ var commands = []command{
 	{"track", "run the tracker alone over a detections file (MOTChallenge text format)", cmdTrack},
 	{"snapshot", "draw one frame of a source with its rules, tracks and counts", cmdSnapshot},
 	{"score", "score tracks against ground truth: CLEAR MOT, IDF1, HOTA", cmdScore},
+	{"site", "store a shared site's file for its daemons (site push), or print it (site show)", cmdSite},
+	{"fleet", "which daemon of a shared site holds which source, lease ages, last hand-overs", cmdFleet},
 	{"models", "compare detector models on a source: speed, AP, count error; recommend one", cmdModels},
 }
 

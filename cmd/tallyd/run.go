@@ -7,6 +7,7 @@ import (
 	"io"
 	"log/slog"
 	"math"
+	"os"
 	"strings"
 	"syscall"
 	"time"
@@ -18,11 +19,42 @@ import (
 )
 
 func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	fs := newFlags("run", "run -c FILE [--status-every 10s]", stdout)
+	fs := newFlags("run", "run -c FILE [--status-every 10s]  |  run --site NAME --nats URL [--member NAME] [--max-sources N] [--state-dir DIR]", stdout)
 	cfgPath := fs.String("c", "", "site file (YAML)")
 	every := fs.Duration("status-every", 10*time.Second, "log a status line per source at this interval (0: never)")
+	site := fs.String("site", "", "run a shared site stored with tallyd site push (instead of -c): this daemon counts the sources its leases give it")
+	member := fs.String("member", "", "with --site: this daemon's name, unique in the site (default hostname-pid)")
+	maxSources := fs.Int("max-sources", 0, "with --site: most sources this daemon counts (0: estimated from the detector's time at the sources' rates)")
+	stateDir := fs.String("state-dir", "", "with --site: this daemon's state folder (outbox, saved state); default .tallyd-MEMBER")
+	bf := addBrokerFlags(fs)
 	if err := parseFlags(fs, args); err != nil {
 		return err
+	}
+	if *site != "" || *bf.url != "" {
+		if *cfgPath != "" {
+			return usageErr("give -c FILE (a site of its own) or --site NAME --nats URL (a shared site), not both")
+		}
+		if *site == "" {
+			return usageErr("--nats goes with --site NAME")
+		}
+		if *maxSources < 0 {
+			return usageErr("--max-sources cannot be negative (found %d)", *maxSources)
+		}
+		if *member == "" {
+			host, _ := os.Hostname()
+			*member = fmt.Sprintf("%s-%d", host, os.Getpid())
+		}
+		if err := bus.ValidToken(*member); err != nil {
+			return usageErr("--member: %v", err)
+		}
+		if *stateDir == "" {
+			*stateDir = ".tallyd-" + *member
+		}
+		return runShared(ctx, sharedRun{site: *site, member: *member, stateDir: *stateDir, maxSources: *maxSources,
+			every: *every, broker: bf}, stdout, stderr)
+	}
+	if *member != "" || *maxSources != 0 || *stateDir != "" {
+		return usageErr("--member, --max-sources and --state-dir go with --site NAME")
 	}
 	cfg, err := loadConfig(*cfgPath)
 	if err != nil {

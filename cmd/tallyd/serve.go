@@ -61,6 +61,7 @@ func startHTTP(cfg *config.Config, p *pipeline.Pipeline, log *slog.Logger) (func
 // events file after log rotation) and SIGUSR1 (reopen only), until the
 // returned func is called. A site file that fails validation changes
 // nothing; its errors are logged.
+// With path "" (a shared site, read from the bucket) SIGHUP only reopens.
 func onSignals(p *pipeline.Pipeline, path string, log *slog.Logger) func() {
 	ch := make(chan os.Signal, 1)
 	signal.Notify(ch, syscall.SIGHUP, syscall.SIGUSR1)
@@ -76,7 +77,10 @@ func onSignals(p *pipeline.Pipeline, path string, log *slog.Logger) func() {
 				} else {
 					log.Info("events file reopened", "signal", sig)
 				}
-				if sig == syscall.SIGHUP {
+				switch {
+				case sig == syscall.SIGHUP && path == "":
+					log.Info("a shared site changes with tallyd site push, not SIGHUP: nothing to reload", "signal", sig)
+				case sig == syscall.SIGHUP:
 					reloadSite(p, path, log)
 				}
 			}

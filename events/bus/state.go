@@ -54,6 +54,15 @@ func OpenState(ctx context.Context, js jetstream.JetStream, bucket string, repli
 	if replicas < 1 || replicas > MaxReplicas {
 		return nil, fmt.Errorf("open state bucket %s: replicas %d out of range 1..%d", bucket, replicas, MaxReplicas)
 	}
+	// An existing bucket as wanted is used as it is: several daemons of a
+	// shared site open it at once, and updates would contend.
+	if kv, err := js.KeyValue(ctx, bucket); err == nil {
+		if st, err := kv.Status(ctx); err == nil {
+			if c := st.(*jetstream.KeyValueBucketStatus).StreamInfo().Config; c.Replicas == replicas && c.MaxMsgsPerSubject == 1 && c.MaxMsgSize == MaxStateValue {
+				return &State{kv: kv}, nil
+			}
+		}
+	}
 	kv, err := js.CreateOrUpdateKeyValue(ctx, jetstream.KeyValueConfig{
 		Bucket:       bucket,
 		Description:  "tallyd live state",
@@ -104,7 +113,16 @@ func (s *State) Get(ctx context.Context, key string) ([]byte, error) {
 // All is every key with its current value: what a restarted daemon restores
 // and what a "totals" command prints.
 func (s *State) All(ctx context.Context) (map[string][]byte, error) {
-	w, err := s.kv.WatchAll(ctx, jetstream.IgnoreDeletes())
+	return s.Match(ctx, ">")
+}
+
+// KV is the bucket itself, for readers that watch it (site-wide areas).
+func (s *State) KV() jetstream.KeyValue { return s.kv }
+
+// Match is every key matching the subject-style pattern keys (e.g.
+// "walkway.>") with its current value.
+func (s *State) Match(ctx context.Context, keys string) (map[string][]byte, error) {
+	w, err := s.kv.Watch(ctx, keys, jetstream.IgnoreDeletes())
 	if err != nil {
 		return nil, fmt.Errorf("read state %s: %w", s.kv.Bucket(), err)
 	}

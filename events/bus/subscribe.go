@@ -26,6 +26,11 @@ func (f Filter) Subject() (string, error) {
 	subj := f.Prefix
 	for _, p := range []struct{ name, v string }{{"site", f.Site}, {"source", f.Source}, {"rule", f.Rule}} {
 		if p.v == "" {
+			if p.name == "rule" {
+				// Every rule's events, a source's handover events
+				// (<prefix>.<site>.<source>.handover) and area events.
+				return subj + ".>", nil
+			}
 			subj += ".*"
 			continue
 		}

@@ -58,8 +58,9 @@ func TestFilterSubject(t *testing.T) {
 		f          Filter
 		want, fail string
 	}{
-		{Filter{Prefix: "tallyd"}, "tallyd.*.*.*.*", ""},
-		{Filter{Prefix: "tallyd", Site: "depot"}, "tallyd.depot.*.*.*", ""},
+		{Filter{Prefix: "tallyd"}, "tallyd.*.*.>", ""},
+		{Filter{Prefix: "tallyd", Site: "depot"}, "tallyd.depot.*.>", ""},
+		{Filter{Prefix: "tallyd", Site: "depot", Source: "gate-1"}, "tallyd.depot.gate-1.>", ""},
 		{Filter{Prefix: "acme.tallyd", Source: "gate-1", Rule: "door"}, "acme.tallyd.*.gate-1.door.*", ""},
 		{Filter{Prefix: ""}, "", `filter prefix: invalid subject token: empty prefix`},
 		{Filter{Prefix: "tallyd", Site: "a b"}, "", `filter site: invalid subject token "a b": ' ' at byte 1 is not a letter, digit, '-' or '_'`},

@@ -34,6 +34,8 @@ type Config struct {
 	StateDir  string    `yaml:"state_dir"`
 	Intervals Intervals `yaml:"intervals"`
 	HTTP      HTTP      `yaml:"http"`
+	// Fleet configures a site shared by several daemons (see CheckShared).
+	Fleet Fleet `yaml:"fleet"`
 
 	// File is the path the config was read from ("" when built in code).
 	File  string `yaml:"-"`
@@ -206,6 +208,10 @@ type Rule struct {
 	Band *float64 `yaml:"band"`
 	// Dwell raises one alert per stay when a track stays in the zone this long.
 	Dwell Duration `yaml:"dwell"`
+	// Area names a site-wide area this zone is part of: the area's
+	// occupancy and totals are the sums over its zones, on any sources
+	// (see Config.Areas). Zones only; a token like rule names.
+	Area string `yaml:"area"`
 }
 
 // Log configures logging.

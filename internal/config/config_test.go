@@ -60,6 +60,9 @@ func TestParseValid(t *testing.T) {
 	if cfg.Output.NATS.Embedded.Port != bus.DefaultPort || cfg.Output.NATS.Prefix != "tallyd" {
 		t.Errorf("output defaults: %+v", cfg.Output)
 	}
+	if cfg.Fleet.LeaseTTL.Duration != 10*time.Second || r.Area != "" {
+		t.Errorf("fleet defaults: %+v, area %q", cfg.Fleet, r.Area)
+	}
 }
 
 // TestErrors checks every error message exactly: file, line, key path, rule, value.
@@ -71,7 +74,7 @@ func TestErrors(t *testing.T) {
 		{"malformed YAML", "site: [ferry\n", "site.yaml:1: malformed YAML: did not find expected ',' or ']'"},
 		{"empty", "", "site.yaml: file is empty"},
 		{"unknown key", base + "sauce: 1\n",
-			"site.yaml:10: sauce: unknown key (known keys: detector, http, intervals, log, output, rules, site, sources, state_dir, tracker)"},
+			"site.yaml:10: sauce: unknown key (known keys: detector, fleet, http, intervals, log, output, rules, site, sources, state_dir, tracker)"},
 		{"unknown nested key", strings.Replace(base, "      seed: 1", "      seed: 1\n      sed: 2", 1),
 			"site.yaml:6: sources[0].scene.sed: unknown key (known keys: crossings, duration, fps, height, noise, seed, visitors, width)"},
 		{"wrong type", strings.Replace(base, "      seed: 1", "      seed: one", 1),
@@ -159,7 +162,7 @@ func TestErrors(t *testing.T) {
 		{"frame pixels", strings.Replace(base, "    scene:", "    max_frame_pixels: 200000000\n    scene:", 1),
 			"site.yaml:4: sources[0].max_frame_pixels: must be within 0..100000000, 0 for the default of 16 megapixels (found 200000000)"},
 		{"bad nats url", base + "output:\n  nats:\n    url: http://user:secret@x:1\n",
-			`site.yaml:12: output.nats.url: want nats://host:port (found "http://user:xxxxx@x:1")`},
+			`site.yaml:12: output.nats.url: want nats://host:port, or several separated by commas (found "http://user:xxxxx@x:1")`},
 		{"duplicate source", strings.Replace(base, "rules:", "  - id: walkway\n    scene: {seed: 2}\nrules:", 1),
 			`site.yaml:6: sources[1].id: duplicate source id "walkway"`},
 		// The ONNX detector block (a fixture model, relative to this package's folder).
@@ -255,6 +258,18 @@ func TestErrors(t *testing.T) {
 			`site.yaml:4: sources[0].folder: cannot open "nowhere": no such file or directory`},
 		{"folder is a file", strings.Replace(base, "    scene:\n      seed: 1", "    folder: config.go", 1),
 			`site.yaml:4: sources[0].folder: "config.go" is a file, want a folder of images`},
+		// A site shared by several daemons (README "Running a site on several machines").
+		{"area on a line", base + "    area: concourse\n", "site.yaml:10: rules[0].area: only zones have an area"},
+		{"area not a token", strings.Replace(base, "line: [[0.1, 0.5], [0.9, 0.5]]", "zone: [[0.1, 0.1], [0.9, 0.1], [0.9, 0.9]]\n    area: main hall", 1),
+			`site.yaml:10: rules[0].area: use only letters, digits, '-' and '_' (found "main hall")`},
+		{"area too long", strings.Replace(base, "line: [[0.1, 0.5], [0.9, 0.5]]", "zone: [[0.1, 0.1], [0.9, 0.1], [0.9, 0.9]]\n    area: "+strings.Repeat("a", 65), 1),
+			"site.yaml:10: rules[0].area: at most 64 characters (found 65)"},
+		{"area a list", base + "    area: [concourse]\n", `site.yaml:10: rules[0].area: want a text value (found a list)`},
+		{"lease ttl too short", base + "fleet: {lease_ttl: 1500ms}\n", "site.yaml:10: fleet.lease_ttl: must be within 2s..5m0s (found 1.5s)"},
+		{"lease ttl too long", base + "fleet:\n  lease_ttl: 10m\n", "site.yaml:11: fleet.lease_ttl: must be within 2s..5m0s (found 10m0s)"},
+		{"lease ttl zero", base + "fleet:\n  lease_ttl: 0s\n", "site.yaml:11: fleet.lease_ttl: must be within 2s..5m0s (found 0s)"},
+		{"lease ttl not a duration", base + "fleet:\n  lease_ttl: 10\n", `site.yaml:11: fleet.lease_ttl: want a duration such as "10s" (found "10")`},
+		{"fleet unknown key", base + "fleet:\n  ttl: 5s\n", "site.yaml:11: fleet.ttl: unknown key (known keys: lease_ttl)"},
 		{"folder_fps without folder", strings.Replace(base, "    scene:\n      seed: 1", "    device: /dev/video0\n    folder_fps: 5", 1),
 			`site.yaml:5: sources[0].folder_fps: applies to folder sources only`},
 		{"negative folder_fps", strings.Replace(base, "    scene:\n      seed: 1", "    folder: .\n    folder_fps: -2", 1),
@@ -342,8 +357,18 @@ func FuzzParse(f *testing.F) {
 	f.Add([]byte(base))
 	f.Add([]byte("site: x\nsources: [{id: a, scene: {seed: 1}}]\n"))
 	f.Add([]byte("{"))
+	f.Add([]byte(sharedSite))
 	f.Fuzz(func(t *testing.T, data []byte) {
 		cfg, err := Parse("fuzz.yaml", data)
+		if err == nil {
+			// Whatever loads, CheckShared judges with located errors.
+			if serr := CheckShared(cfg); serr != nil {
+				var es Errors
+				if !errors.Is(serr, ErrInvalid) || !errors.As(serr, &es) || len(es) == 0 || es[0].Path == "" {
+					t.Fatalf("CheckShared error not located: %v", serr)
+				}
+			}
+		}
 		if err == nil && cfg == nil {
 			t.Fatal("nil config without error")
 		}

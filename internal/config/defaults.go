@@ -89,6 +89,7 @@ func Defaults() Config {
 		Log:       Log{Level: DefaultLogLevel, Format: DefaultLogFormat},
 		StateDir:  DefaultStateDir,
 		Intervals: Intervals{TimeZone: DefaultTimeZone},
+		Fleet:     Fleet{LeaseTTL: Duration{DefaultLeaseTTL}},
 	}
 }
 

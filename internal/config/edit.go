@@ -39,6 +39,9 @@ func ruleYAML(r Rule) string {
 	if r.Dwell.Duration > 0 {
 		fmt.Fprintf(&b, "    dwell: %s\n", r.Dwell.Duration)
 	}
+	if r.Area != "" {
+		fmt.Fprintf(&b, "    area: %s\n", yamlScalar(r.Area))
+	}
 	if r.Anchor != "" && r.Anchor != events.AnchorBottomCenter {
 		fmt.Fprintf(&b, "    anchor: %s\n", r.Anchor)
 	}

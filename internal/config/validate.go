@@ -7,6 +7,7 @@ import (
 	"os"
 	"regexp"
 	"slices"
+	"strings"
 	"time"
 
 	"tallyd/events"
@@ -49,6 +50,7 @@ func (c *Config) Validate(checks ...Check) error {
 	v.output()
 	v.delivery()
 	v.http()
+	v.fleet()
 	for _, check := range checks {
 		v.errs = append(v.errs, check(c)...)
 	}
@@ -299,14 +301,25 @@ func (v *validator) rule(path string, r Rule, ids, names map[string]bool) {
 	for i, cl := range r.Classes {
 		v.name(fmt.Sprintf("%s.classes[%d]", path, i), cl)
 	}
+	if r.Area != "" {
+		if r.Kind() != events.RuleZone {
+			v.fail(path+".area", "only zones have an area")
+		} else {
+			v.token(path+".area", r.Area)
+		}
+	}
 }
 
 func (v *validator) output() {
 	n := v.c.Output.NATS
 	if n.URL != "" && v.pathLen("output.nats.url", n.URL) {
-		u, err := url.Parse(n.URL)
-		if err != nil || (u.Scheme != "nats" && u.Scheme != "tls" && u.Scheme != "ws" && u.Scheme != "wss") || u.Host == "" {
-			v.fail("output.nats.url", "want nats://host:port (found %q)", bus.RedactURL(n.URL))
+		// One server, or several of a cluster separated by commas.
+		for _, one := range strings.Split(n.URL, ",") {
+			u, err := url.Parse(strings.TrimSpace(one))
+			if err != nil || (u.Scheme != "nats" && u.Scheme != "tls" && u.Scheme != "ws" && u.Scheme != "wss") || u.Host == "" {
+				v.fail("output.nats.url", "want nats://host:port, or several separated by commas (found %q)", bus.RedactURL(n.URL))
+				break
+			}
 		}
 	}
 	if n.Embedded.Port < 0 || n.Embedded.Port > 65535 {

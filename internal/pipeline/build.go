@@ -53,6 +53,12 @@ type Options struct {
 	// Until, when set, stops processing each source after the first frame
 	// at or past this source time, and keeps that frame for Snapshot.
 	Until *time.Duration
+	// Shared runs a site whose sources are spread over several daemons:
+	// every url and scene source waits behind a capture.Standby until this
+	// daemon holds its lease (Start), scenes run on the wall clock, and
+	// events are fenced by the lease (see shared.go). config.CheckShared
+	// lists what such a site may hold.
+	Shared bool
 	// Workers is the number of detect workers sharing the detector; 0 = one
 	// per session of a detector that runs several inferences at once (the
 	// ONNX detector's pool, one session per core by default), else 1.
@@ -86,6 +92,12 @@ type Pipeline struct {
 	stopCapture context.CancelFunc
 	untilLeft   atomic.Int64
 
+	// areas are the site-wide areas this daemon keeps (shared.go).
+	fenced      *repeat.Reporter // events refused for want of a valid lease
+	areasMu     sync.Mutex
+	areas       map[string]*areaRun
+	fencedAreas atomic.Int64
+
 	checking    bool // a dry run: open live sources once, without reconnecting
 	detectCalls atomic.Int64
 	interrupted atomic.Bool // stopped before every recorded source ended
@@ -113,7 +125,8 @@ func Build(cfg *config.Config, opts Options) (_ *Pipeline, err error) {
 	if opts.DeliverTimeout == 0 {
 		opts.DeliverTimeout = 5 * time.Second
 	}
-	p := &Pipeline{cfg: cfg, opts: opts, log: opts.Log, run: newRunID(opts.Start)}
+	p := &Pipeline{cfg: cfg, opts: opts, log: opts.Log, run: newRunID(opts.Start), areas: map[string]*areaRun{}}
+	p.fenced = repeat.New(p.log, "events refused: the source's lease is no longer valid (another daemon may hold it)", repeat.DefaultPeriod).AtLevel(slog.LevelWarn)
 	p.untilLeft.Store(int64(len(cfg.Sources)))
 	defer func() {
 		if err != nil {
@@ -176,15 +189,20 @@ func (p *Pipeline) openSource(i int, sc config.Source) (*sourceRun, error) {
 		sr.set.start, _ = time.Parse(time.RFC3339, sc.StartTime) // validated
 	}
 	var rd capture.Reader
-	switch kind {
-	case capture.KindScene:
+	switch {
+	case p.opts.Shared:
+		if err := p.openShared(sr, key, sc); err != nil {
+			return nil, err
+		}
+		rd = sr.shared.standby
+	case kind == capture.KindScene:
 		s, err := scene.New(SceneConfig(*sc.Scene))
 		if err != nil {
 			return nil, p.cfg.Errorf(key, "%v", err)
 		}
 		g := capture.NewGenerated(s)
 		rd, sr.info, sr.scene = g, g.Info(), s
-	case capture.KindFile, capture.KindFolder:
+	case kind == capture.KindFile || kind == capture.KindFolder:
 		r, in, err := capture.Open(sourceSpec(p.cfg, sc), p.log)
 		if err != nil {
 			return nil, p.cfg.Errorf(key, "%v", err)
@@ -326,6 +344,9 @@ func (p *Pipeline) openOutputs() error {
 		return p.cfg.Errorf("state_dir", "%v", err)
 	}
 	d.state = newStateSink(kv, p.cfg.StatePath("state.json"), p.log)
+	if p.opts.Shared {
+		d.state.gate = p.stateWritable
+	}
 	if err := p.restoreState(ctx, kv); err != nil {
 		return err
 	}
@@ -407,6 +428,9 @@ func (p *Pipeline) restoreState(ctx context.Context, kv *bus.State) error {
 		return nil
 	}
 	for _, sr := range p.sources {
+		if sr.shared != nil {
+			continue // restored from the bucket at each hold (shared.go)
+		}
 		if st := saved[sr.id]; sr.set.live && len(st) > 0 {
 			sr.restore = st
 			if sr.stages.engine != nil { // opened already: nothing counted yet

@@ -49,6 +49,9 @@ type counters struct {
 	tooOld      atomic.Int64
 	gated       atomic.Int64
 	events      atomic.Int64 // events the source's rules produced
+	fenced      atomic.Int64 // events refused: produced outside a valid lease (shared sites)
+	handovers   atomic.Int64 // holds begun after another holder (shared sites)
+	gapNanos    atomic.Int64 // time without a holder before those holds
 	detectNanos atomic.Int64 // time in Detect, shared out per frame
 	ages        latencies
 }

@@ -42,7 +42,11 @@ func (p *Pipeline) process(ctx context.Context, jobs []job) error {
 			f.Close()
 			continue
 		}
-		p.applyReload(sr)
+		if sh := sr.shared; sh == nil || sh.holdOf(f.Conn) == sh.active {
+			p.applyReload(sr)
+		} else {
+			sr.reloaded.Store(false) // a new hold starts with the rules in force
+		}
 		// 2. A loss report that a newer frame overtook: the old connection's
 		// tracks end first.
 		if sr.cursor.conn != 0 && f.Conn != sr.cursor.conn && sr.cursor.closedFor < sr.cursor.conn {
@@ -55,6 +59,11 @@ func (p *Pipeline) process(ctx context.Context, jobs []job) error {
 				sr.resetTracker()
 			}
 			sr.setupRules(p, w, h)
+		}
+		if sh := sr.shared; sh != nil {
+			if hr := sh.holdOf(f.Conn); hr != nil && hr != sh.active {
+				p.beginHold(sr, f, hr)
+			}
 		}
 		if why := sr.admit(f); why != "" { // 3
 			sr.count.drop(why)
@@ -125,13 +134,27 @@ func (p *Pipeline) closeStays(sr *sourceRun, reason events.Reason) {
 }
 
 // closeLost ends what a lost connection held open: zone stays (reason
-// source_lost), tracks, the detector's and the gate's memory of the scene.
+// source_lost, or handover when the source moved to another daemon),
+// tracks, the detector's and the gate's memory of the scene.
 func (p *Pipeline) closeLost(sr *sourceRun, conn int64) {
 	if conn <= sr.cursor.closedFor {
 		return
 	}
 	sr.cursor.closedFor = conn
-	p.closeStays(sr, events.ReasonSourceLost)
+	reason := events.ReasonSourceLost
+	var hr *holdRun
+	if sr.shared != nil {
+		if hr = sr.shared.holdOf(conn); hr != nil && hr.ended.Load() {
+			reason = events.ReasonHandover
+		}
+	}
+	p.closeStays(sr, reason)
+	if hr != nil && sr.stages.engine != nil {
+		p.out.state.update(sr.id, sr.stages.engine.State(sr.cursor.pts))
+	}
+	if hr != nil && hr.ended.Load() {
+		hr.closed.Store(true)
+	}
 	sr.resetTracker()
 	if f, ok := p.det.(Forgetter); ok {
 		f.Forget(sr.id)

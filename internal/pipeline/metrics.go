@@ -18,6 +18,13 @@ import (
 type metrics struct {
 	inference *prometheus.HistogramVec
 	age       *prometheus.HistogramVec
+	gap       *prometheus.HistogramVec
+}
+
+// handover records the time a source had no holder before this daemon took
+// it over (shared sites).
+func (m *metrics) handover(source string, gap float64) {
+	m.gap.WithLabelValues(source).Observe(gap)
 }
 
 func (m *metrics) frame(source string, inference, age time.Duration) {
@@ -43,7 +50,14 @@ func (p *Pipeline) Register(reg prometheus.Registerer) error {
 			Buckets: prometheus.ExponentialBuckets(0.005, 2, 12),
 		}, []string{"source"}),
 	}
-	for _, c := range []prometheus.Collector{m.inference, m.age, &metricsCollector{p: p}} {
+	m.gap = prometheus.NewHistogramVec(prometheus.HistogramOpts{
+		Name: "tallyd_handover_gap_seconds",
+		Help: "Time a shared source had no holder before this daemon took it over (the previous holder's last renewal to the first frame here).",
+		// 0.25 s to ~2 min: a clean hand-over takes well under a second,
+		// one after a crash the lease's time to live and more.
+		Buckets: prometheus.ExponentialBuckets(0.25, 2, 10),
+	}, []string{"source"})
+	for _, c := range []prometheus.Collector{m.inference, m.age, m.gap, &metricsCollector{p: p}} {
 		if err := reg.Register(c); err != nil {
 			return err
 		}
@@ -73,6 +87,8 @@ var (
 	descLost      = prometheus.NewDesc("tallyd_events_dropped_total", "Events lost: a full queue or outbox dropped them, or they could not be encoded.", nil, nil)
 	descFailures  = prometheus.NewDesc("tallyd_delivery_failures_total", "Failed delivery attempts (JetStream ones are retried).", nil, nil)
 	descConnected = prometheus.NewDesc("tallyd_broker_connected", "1 while the connection to the NATS server is up.", nil, nil)
+	descHandovers = prometheus.NewDesc("tallyd_source_handovers_total", "Holds of a shared source this daemon began (the first hold of a source included).", []string{"source"}, nil)
+	descFenced    = prometheus.NewDesc("tallyd_events_fenced_total", "Events refused because the lease of their source (or area) was no longer valid when they were produced.", []string{"source"}, nil)
 	descJSONL     = prometheus.NewDesc("tallyd_jsonl_events_total", "Events of the JSON-lines file, by outcome.", []string{"outcome"}, nil)
 )
 
@@ -98,6 +114,10 @@ func (c *metricsCollector) Collect(ch chan<- prometheus.Metric) {
 			counter(descDropped, d.n, string(d.why))
 		}
 		counter(descSrcEv, st.Events)
+		if sr.shared != nil {
+			counter(descHandovers, st.Holds)
+			counter(descFenced, st.Fenced)
+		}
 		ws := sr.worker.Stats()
 		ch <- prometheus.MustNewConstMetric(descUp, prometheus.GaugeValue, boolFloat(sourceUp(ws)), id)
 		counter(descReconn, max(0, ws.Link.Conn-1))

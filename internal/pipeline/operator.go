@@ -132,10 +132,20 @@ func (o *Operator) Rules(_ context.Context, source string, rules []web.Rule, sav
 	}
 	var res web.RulesResult
 	crules := make([]config.Rule, len(rules))
+	// The page does not edit areas: a rule keeps the area it had.
+	areas := map[string]string{}
+	for _, r := range cfg.Rules {
+		if r.Source == source {
+			areas[r.Name] = r.Area
+		}
+	}
 	for i, r := range rules {
 		cr, err := configRule(r, source)
 		if err != nil {
 			res.Errors = append(res.Errors, web.RuleError{Rule: r.Name, Index: i, Message: err.Error()})
+		}
+		if cr.Area == "" && cr.Zone != nil {
+			cr.Area = areas[cr.Name]
 		}
 		crules[i] = cr
 	}

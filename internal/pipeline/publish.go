@@ -16,6 +16,20 @@ import (
 // publish stamps each event with its frame's age and hands it to the
 // delivery, which never waits; a source's counters follow its events.
 func (p *Pipeline) publish(sr *sourceRun, captured time.Time, evs []events.Event) {
+	if len(evs) == 0 {
+		return
+	}
+	if sh := sr.shared; sh != nil {
+		hr, ok := sh.valid(captured)
+		if !ok {
+			sr.count.fenced.Add(int64(len(evs)))
+			p.fenced.Note(fmt.Errorf("source %s: %d events", sr.id, len(evs)), "source", sr.id)
+			return
+		}
+		for i := range evs {
+			evs[i].Data.Lease = hr.h.Token
+		}
+	}
 	for i := range evs {
 		ev := &evs[i]
 		if !captured.IsZero() {

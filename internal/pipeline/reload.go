@@ -93,6 +93,7 @@ func changedSections(a, b *config.Config) []string {
 		{"site", a.Site, b.Site}, {"sources", a.Sources, b.Sources}, {"detector", a.Detector, b.Detector},
 		{"tracker", a.Tracker, b.Tracker}, {"output", a.Output, b.Output}, {"log", a.Log, b.Log},
 		{"state_dir", a.StateDir, b.StateDir}, {"intervals", a.Intervals, b.Intervals}, {"http", a.HTTP, b.HTTP},
+		{"fleet", a.Fleet, b.Fleet}, {"areas", a.Areas(), b.Areas()},
 	} {
 		if !reflect.DeepEqual(s.x, s.y) {
 			out = append(out, s.name)

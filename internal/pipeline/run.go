@@ -26,6 +26,12 @@ func (p *Pipeline) Run(ctx context.Context) error {
 	ctx, p.stopCapture = context.WithCancel(ctx)
 	defer p.stopCapture()
 	p.out.start()
+	if !p.opts.Shared && !p.opts.Offline {
+		// One daemon holds every zone of its areas: no lease needed.
+		for name := range p.rulesConfig().Areas() {
+			p.runArea(name, nil)
+		}
+	}
 	s := newScheduler(p)
 	p.sched.Store(s)
 	for _, sr := range p.sources {
@@ -83,6 +89,7 @@ func (p *Pipeline) Run(ctx context.Context) error {
 		// delivered by then waits in the outbox for the next start.
 		deliver = min(deliver, time.Second)
 	}
+	p.stopAreas()
 	outErr := p.out.stop(deliver)
 	stopStatus()
 	p.logDelivery("delivery at stop")

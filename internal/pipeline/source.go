@@ -40,6 +40,8 @@ type sourceRun struct {
 	// annotate writes the processed frames with the overlay (replay
 	// --annotate); nil otherwise.
 	annotate *annotator
+	// shared is set on a site shared by several daemons (Options.Shared).
+	shared *sharedSource
 }
 
 // sourceSettings are a source's settings from the site file, in stage form.
@@ -91,10 +93,7 @@ func (sr *sourceRun) setupRules(p *Pipeline, w, h int) {
 	if sr.set.gate != nil {
 		st.gate = newGate(sr, st)
 	}
-	meta := events.Meta{Site: p.cfg.Site, Source: sr.id, Start: sr.set.start}
-	if sr.set.live {
-		meta.Run = p.run
-	}
+	meta := sr.meta(p)
 	restore := sr.restore
 	if st.engine != nil { // a new frame size: the counts so far carry over
 		restore = st.engine.State(sr.cursor.pts)

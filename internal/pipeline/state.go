@@ -31,6 +31,9 @@ type stateSink struct {
 	file   string     // local copy
 	period time.Duration
 	fails  *repeat.Reporter
+	// gate, when set, says whether a source's state may be written now (a
+	// shared site: only under a valid lease); a refused write is dropped.
+	gate func(source string) bool
 
 	mu     sync.Mutex
 	latest map[string]events.RuleState // <source>.<rule> -> state
@@ -43,6 +46,14 @@ const statePeriod = 500 * time.Millisecond
 func newStateSink(kv *bus.State, file string, log *slog.Logger) *stateSink {
 	return &stateSink{kv: kv, file: file, period: statePeriod, latest: map[string]events.RuleState{},
 		dirty: map[string]bool{}, fails: repeat.New(log, "writing the live state failed", repeat.DefaultPeriod)}
+}
+
+// bucket is the live-state bucket (nil without JetStream, or before it is
+// set up).
+func (s *stateSink) bucket() *bus.State {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.kv
 }
 
 // setKV starts writing to a bucket that was set up late.
@@ -97,6 +108,9 @@ func (s *stateSink) flush() {
 	if kv != nil {
 		ctx, cancel := context.WithTimeout(context.Background(), 2*time.Second)
 		for k := range dirty {
+			if source, _, _ := strings.Cut(k, "."); s.gate != nil && !s.gate(source) {
+				continue
+			}
 			b, _ := json.Marshal(all[k])
 			if err := kv.Put(ctx, k, b); err != nil {
 				errs = append(errs, err)

@@ -32,6 +32,12 @@ type SourceStatus struct {
 	// declares (Declared frames).
 	EndedEarly bool
 	Declared   int64
+	// Shared sites: Holds counts the holds of the source this daemon began,
+	// Gap the time without a holder before them, Fenced the events refused
+	// for want of a valid lease.
+	Holds  int64
+	Gap    time.Duration
+	Fenced int64
 }
 
 // Status reports each source's health and counters; safe while Run runs.
@@ -44,7 +50,8 @@ func (p *Pipeline) Status() []SourceStatus {
 			Processed: sr.count.processed.Load(), Dropped: sr.count.drops(st),
 			Events:   sr.count.events.Load(),
 			AgeP50ms: p50, AgeP99ms: p99, DetectTime: time.Duration(sr.count.detectNanos.Load()),
-			EndedEarly: st.EndedEarly, Declared: st.Declared})
+			EndedEarly: st.EndedEarly, Declared: st.Declared,
+			Holds: sr.count.handovers.Load(), Gap: time.Duration(sr.count.gapNanos.Load()), Fenced: sr.count.fenced.Load()})
 	}
 	return out
 }
@@ -56,6 +63,9 @@ func (s SourceStatus) logAttrs() []any {
 		"dropped_too_old", s.Dropped.TooOld, "gated", s.Dropped.Gated,
 		"events", s.Events,
 		"age_p50_ms", round1(s.AgeP50ms), "age_p99_ms", round1(s.AgeP99ms)}
+	if s.Holds > 0 || s.Fenced > 0 {
+		a = append(a, "holds", s.Holds, "gap_s", round1(s.Gap.Seconds()), "fenced", s.Fenced)
+	}
 	if s.Err != "" {
 		a = append(a, "err", s.Err)
 	}
