@@ -268,11 +268,12 @@ func (s shifted) ReadContext(ctx context.Context, dst *gocv.Mat) (time.Duration,
 }
 
 // WallScene shows a generated scene as a live camera on the wall clock: frame
-// i is due at start + i/fps; a read returns the frame due now (frames whose
+// n is due at start + n/fps; a read returns the frame due now (frames whose
 // time passed while nobody read are skipped, as a camera's are), and waits
-// for the next one. Before start it waits; after the scene's last frame it
-// shows nothing more (reads wait until ctx ends). Timestamps are scene
-// times, so events carry the scene's own clock.
+// for the next one. Before start it waits; past the scene's length it shows
+// the scene again from its first frame (an endless camera), timestamps still
+// rising. Timestamps are times since start, so events carry the scene's own
+// clock.
 type WallScene struct {
 	sc     *scene.Scene
 	start  time.Time
@@ -295,22 +296,21 @@ func (w *WallScene) Read(dst *gocv.Mat) (time.Duration, error) {
 func (w *WallScene) ReadContext(ctx context.Context, dst *gocv.Mat) (time.Duration, error) {
 	fps := w.sc.FPS()
 	now := int(math.Floor(time.Since(w.start).Seconds() * fps))
-	i := max(w.next, now, 0)
-	if i >= w.sc.Frames() {
-		<-ctx.Done()
-		return 0, ctx.Err()
-	}
-	if d := time.Until(w.start.Add(w.sc.Time(i))); d > 0 {
+	n := max(w.next, now, 0)
+	pts := time.Duration(math.Round(float64(n) * float64(time.Second) / fps))
+	if d := time.Until(w.start.Add(pts)); d > 0 {
 		select {
 		case <-time.After(d):
 		case <-ctx.Done():
 			return 0, ctx.Err()
 		}
 	}
-	w.g.i = i
-	pts, err := w.g.Read(dst)
-	w.next = i + 1
-	return pts, err
+	w.g.i = n % w.sc.Frames()
+	if _, err := w.g.Read(dst); err != nil {
+		return 0, err
+	}
+	w.next = n + 1
+	return pts, nil
 }
 
 // Link implements LiveReader: a generated camera is always up, on one

@@ -3,13 +3,13 @@ package main
 import (
 	"context"
 	"errors"
-	"flag"
 	"fmt"
 	"io"
 	"log/slog"
 	"os"
 	"path/filepath"
 	"sort"
+	"strings"
 	"time"
 
 	"github.com/nats-io/nats.go"
@@ -78,12 +78,15 @@ func (b *brokerFlags) connect(name string, stderr io.Writer, log *slog.Logger) (
 }
 
 func cmdSite(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	if len(args) == 0 || (args[0] != "push" && args[0] != "show") {
-		if len(args) > 0 && (args[0] == "-h" || args[0] == "--help") {
-			fmt.Fprintln(stdout, "Usage: tallyd site push -c FILE --nats URL   check a site file and store it for the site's daemons")
-			fmt.Fprintln(stdout, "       tallyd site show --site NAME --nats URL   print the stored site file")
-			return flag.ErrHelp
+	if len(args) > 0 && strings.HasPrefix(args[0], "-") {
+		// Flags before the subcommand: --help, or a mistake.
+		fs := newFlags("site", "site push -c FILE --nats URL   (check a site file and store it for the site's daemons)\n"+
+			"       tallyd site show --site NAME --nats URL   (print the stored site file)", stdout)
+		if err := parseFlags(fs, args); err != nil {
+			return err
 		}
+	}
+	if len(args) == 0 || (args[0] != "push" && args[0] != "show") {
 		return usageErr("want `tallyd site push -c FILE --nats URL` or `tallyd site show --site NAME --nats URL`")
 	}
 	if args[0] == "show" {
@@ -306,7 +309,9 @@ func runSharedOnce(ctx context.Context, a sharedRun, js jetstream.JetStream, cfg
 		areas = append(areas, name)
 	}
 	sort.Strings(areas)
-	m, err := fleet.Join(ctx, js, fleet.Options{Site: cfg.Site, Member: a.member, TTL: cfg.Fleet.LeaseTTL.Duration,
+	// The member lives until Leave, not until ctx: at SIGTERM it must hand
+	// its cameras over cleanly (a cancelled member lets its leases expire).
+	m, err := fleet.Join(context.WithoutCancel(ctx), js, fleet.Options{Site: cfg.Site, Member: a.member, TTL: cfg.Fleet.LeaseTTL.Duration,
 		Capacity: capacity, Sources: p.SharedSources(), Areas: areas, Replicas: cfg.Output.NATS.JetStream.Replicas, Log: log}, p)
 	if err != nil {
 		stopRun()
