@@ -111,8 +111,24 @@ func testDeadMember(t *testing.T, c *testkit.Cluster) {
 	dead := f.members[0].Holds()
 	killed := time.Now()
 	f.cancels[0]() // no Leave: its leases stay until they expire
+	// A hold is listed by Holds just before the holder's Start is called:
+	// wait for both.
+	started := func() bool {
+		for _, d := range dead {
+			found := false
+			for _, r := range f.recs[1:] {
+				for _, h := range r.startsAfter(killed) {
+					found = found || h.Name == d.Name
+				}
+			}
+			if !found {
+				return false
+			}
+		}
+		return true
+	}
 	testkit.WaitFor(t, testTTL+2*time.Second, "the dead member's sources taken by the others", func() bool {
-		return f.allHeldOnce(src, 1, 2)
+		return f.allHeldOnce(src, 1, 2) && started()
 	})
 	took := time.Since(killed)
 	t.Logf("taken over %v after the kill (ttl %v)", took, testTTL)
