@@ -115,7 +115,7 @@ func (sh *sharedSource) valid(t time.Time) (*holdRun, bool) {
 func (p *Pipeline) Start(h *fleet.Hold) {
 	switch h.Kind {
 	case fleet.KindArea:
-		p.startArea(h)
+		p.runArea(h.Name, h)
 		return
 	}
 	sr := p.sourceByID(h.Name)
@@ -291,14 +291,9 @@ type areaRun struct {
 	done   chan struct{}
 }
 
-// startArea keeps a site-wide area while h is held: its occupancy and
-// totals are summed from the live state of its zones and published when they
-// change.
-func (p *Pipeline) startArea(h *fleet.Hold) {
-	p.runArea(h.Name, h)
-}
-
-// runArea starts keeping an area; h is its lease (nil on an unshared site).
+// runArea keeps a site-wide area: its occupancy and totals are summed from
+// the live state of its zones and published when they change; h is the
+// area's lease (nil on a site of one daemon).
 func (p *Pipeline) runArea(name string, h *fleet.Hold) {
 	kv := p.out.state.bucket()
 	if kv == nil {
@@ -363,7 +358,7 @@ func (p *Pipeline) stopAreas() {
 }
 
 // SharedSources are the ids of the sources a shared site spreads over its
-// daemons, and Areas the site-wide areas.
+// daemons.
 func (p *Pipeline) SharedSources() []string {
 	var ids []string
 	for _, sr := range p.sources {
