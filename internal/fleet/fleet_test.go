@@ -30,6 +30,7 @@ func TestFleet(t *testing.T) {
 	t.Run("Leave", func(t *testing.T) { testLeave(t, c) })
 	t.Run("Paused", func(t *testing.T) { testPaused(t, c) })
 	t.Run("SameName", func(t *testing.T) { testSameName(t, c) })
+	t.Run("StuckWatcher", func(t *testing.T) { testStuckWatcher(t, c) })
 	t.Run("Sites", func(t *testing.T) { testSites(t, c) })
 	t.Run("KeepArea", func(t *testing.T) { testKeepArea(t, c) })
 	t.Run("NodeDown", func(t *testing.T) { testNodeDown(t, c) })
@@ -500,4 +501,43 @@ func testSameName(t *testing.T, c *testkit.Cluster) {
 	wg.Wait()
 	mcancel()
 	m.wg.Wait()
+}
+
+// testStuckWatcher: a member whose lease-bucket watcher stops delivering
+// (seen after a daemon was frozen) would never see a lease go free; it
+// notices that its own member-key renewals do not come back, starts a new
+// watcher, and takes the sources another member releases.
+func testStuckWatcher(t *testing.T, c *testkit.Cluster) {
+	f := newFleet(t, c, "stuck")
+	src := sourceNames(2)
+	f.join("a", opts(src, 2))
+	testkit.WaitFor(t, 3*testTTL, "a holds both sources", func() bool { return f.allHeldOnce(src, 0) })
+	var mu sync.Mutex
+	deaf := true // b's first watcher gets stuck after a second, the next ones do not
+	ob := opts(src, 2)
+	ob.deafWatch = func() time.Duration {
+		mu.Lock()
+		defer mu.Unlock()
+		if deaf {
+			deaf = false
+			return time.Second
+		}
+		return 0
+	}
+	b := f.join("b", ob)
+	time.Sleep(1500 * time.Millisecond) // b has seen a's leases; its watcher is deaf now
+	ctx, cancel := context.WithTimeout(context.Background(), ctxWait)
+	defer cancel()
+	t0 := time.Now()
+	if err := f.members[0].Leave(ctx); err != nil {
+		t.Fatal(err)
+	}
+	testkit.WaitFor(t, 3*testTTL, "b takes the released sources with a new watcher", func() bool {
+		return f.allHeldOnce(src, 1)
+	})
+	t.Logf("b took both %v after a left (its first watcher deaf)", time.Since(t0))
+	if st := b.Stats(); st.Rewatch < 1 {
+		t.Errorf("b: no watcher restart counted: %+v", st)
+	}
+	f.ledger.check(t)
 }

@@ -35,6 +35,10 @@ type Options struct {
 	// pause, when set (tests), is called before each renewal pass: a
 	// blocking pause simulates a frozen daemon.
 	pause func()
+	// deafWatch, when set (tests), is asked as each bucket watcher starts:
+	// a duration > 0 makes that watcher drop everything it delivers after
+	// that long (a stuck one).
+	deafWatch func() time.Duration
 }
 
 // Stats count a member's lease work.
@@ -47,6 +51,7 @@ type Stats struct {
 	Expired   int64 // other members' stale keys this member deleted
 	Holding   int   // holds now
 	Rebalance int64 // holds released for the spread
+	Rewatch   int64 // bucket watchers restarted because they fell behind
 }
 
 // leaseValue is the JSON value of source.*, area.* and member.* keys.
@@ -106,10 +111,11 @@ type Member struct {
 	// saw the watcher miss this member's own latest member-key write.
 	rewatch     chan struct{}
 	behindSince time.Time
-	leave    chan chan error
-	stopped  chan struct{}
+	leave       chan chan error
+	stopped     chan struct{}
 
 	ops, failures, started, releasedN, lost, expired, rebalance atomic.Int64
+	rewatches                                                   atomic.Int64
 	lastRebalance                                               time.Time
 	rebalanceWait                                               time.Duration // grows while rebalanced sources come back (plan)
 }
@@ -321,6 +327,12 @@ func (m *Member) watch(ready chan struct{}) {
 			}
 			continue
 		}
+		var deafAt time.Time
+		if m.o.deafWatch != nil {
+			if d := m.o.deafWatch(); d > 0 {
+				deafAt = time.Now().Add(d)
+			}
+		}
 		for open := true; open; {
 			select {
 			case <-m.ctx.Done():
@@ -331,6 +343,7 @@ func (m *Member) watch(ready chan struct{}) {
 				// it may deliver nothing more): start a new one, which
 				// replays the current values.
 				m.log.Info("lease bucket watcher restarted: it missed this member's own renewals")
+				m.rewatches.Add(1)
 				open = false
 			case e, ok := <-w.Updates():
 				if !ok {
@@ -339,6 +352,9 @@ func (m *Member) watch(ready chan struct{}) {
 				}
 				if e == nil {
 					once.Do(func() { close(ready) })
+					continue
+				}
+				if !deafAt.IsZero() && time.Now().After(deafAt) {
 					continue
 				}
 				m.observe(e.Key(), e.Revision(), e.Operation() == jetstream.KeyValuePut, e.Value(), time.Now())
@@ -413,7 +429,7 @@ func (m *Member) Stats() Stats {
 	return Stats{
 		Ops: m.ops.Load(), Failures: m.failures.Load(), Started: m.started.Load(),
 		Released: m.releasedN.Load(), Lost: m.lost.Load(), Expired: m.expired.Load(),
-		Holding: n, Rebalance: m.rebalance.Load(),
+		Holding: n, Rebalance: m.rebalance.Load(), Rewatch: m.rewatches.Load(),
 	}
 }
 

@@ -13,6 +13,7 @@ import (
 	"github.com/nats-io/nats.go/jetstream"
 
 	"tallyd/capture"
+	"tallyd/detect"
 	"tallyd/events"
 	"tallyd/internal/config"
 	"tallyd/internal/fleet"
@@ -171,5 +172,39 @@ func TestSharedHandover(t *testing.T) {
 	t.Logf("%d events, %d enters, %d area events, handovers %+v", len(all), enters, areaEvents, handovers)
 	if enters > 0 && areaEvents < 2 {
 		t.Errorf("%d enters but %d area events", enters, areaEvents)
+	}
+}
+
+// busyDetector spends cost of CPU time per frame (a stand-in for a model).
+type busyDetector struct{ cost time.Duration }
+
+func (d busyDetector) Detect(_ context.Context, b []*capture.Frame) ([][]detect.Detection, error) {
+	for range b {
+		start := processCPUTime()
+		for processCPUTime()-start < d.cost {
+		}
+	}
+	return make([][]detect.Detection, len(b)), nil
+}
+func (busyDetector) Close() error { return nil }
+
+// TestHoldCapacity: with a detector costing 20 ms of CPU a frame and
+// cameras at 10 fps (200 ms of CPU a second each), one detect worker takes
+// 80% of a second's CPU / 200 ms = 4 cameras.
+func TestHoldCapacity(t *testing.T) {
+	cfg := sharedSite(t, "nats://127.0.0.1:1", time.Now(), "")
+	cfg.Output.JSONL = ""
+	p, err := Build(cfg, Options{Shared: true, Offline: true, Detector: busyDetector{20 * time.Millisecond}, Workers: 1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer p.Close()
+	n, err := p.HoldCapacity(context.Background())
+	if err != nil {
+		t.Fatal(err)
+	}
+	// 0.8 x 1000 ms / (20 ms x 10 fps) = 4; timing noise may make it 3.
+	if n < 3 || n > 4 {
+		t.Errorf("capacity %d cameras, want 4 (3 with timing noise)", n)
 	}
 }
