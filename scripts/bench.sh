@@ -220,10 +220,13 @@ fi
   echo "load average before: $(loadavg)"
   go test -run '^$' -bench 'BenchmarkHandover|BenchmarkLeaseTraffic' -benchtime 1x -timeout 10m ./internal/fleet/ 2>&1 | grep '^Benchmark'
   go test -run '^$' -bench 'BenchmarkR3Publish' -count "$runs" -timeout 10m ./internal/fleet/ 2>&1 | grep '^Benchmark'
+  go test -tags matprofile -run '^$' -bench 'BenchmarkSharedHandover' -benchtime 1x -timeout 10m ./internal/pipeline/ 2>&1 | grep '^Benchmark'
   echo "load average after: $(loadavg)"
   echo "(Handover: kill = a member stops renewing, TTL 2 s, 20 kills, p50/p99/max ms from the kill to the next holder's Start."
   echo " LeaseTraffic: one member holding 2 of 6 sources among 3 members, its connection's msgs and bytes per second."
-  echo " R3Publish: 300-byte events with Nats-Msg-Id, 1024 acknowledgements in flight.)"
+  echo " R3Publish: 300-byte events with Nats-Msg-Id, 1024 acknowledgements in flight."
+  echo " SharedHandover: two daemons (pipeline + member) share a 10 fps camera, TTL 2 s, 20 kills at random points of the"
+  echo " renewal cycle; kill to the first frame counted under the new holder's lease.)"
 } | tee -a "$report"
 if [ "${TALLYD_BENCH_LIVE:-1}" != "0" ]; then
   {

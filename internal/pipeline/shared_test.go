@@ -22,7 +22,7 @@ import (
 
 // sharedSite is a site of two generated cameras on the wall clock from
 // start, both ticket zones in one area.
-func sharedSite(t *testing.T, url string, start time.Time, jsonl string) *config.Config {
+func sharedSite(t testing.TB, url string, start time.Time, jsonl string) *config.Config {
 	t.Helper()
 	y := fmt.Sprintf(`site: s
 sources:
