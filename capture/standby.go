@@ -51,6 +51,9 @@ type Standby struct {
 	openFail time.Time     // when it failed
 }
 
+// keptTags is how many recent connections Tag answers for.
+const keptTags = 16
+
 // NewStandby makes a switched-off shared source.
 func NewStandby(open Opener, log *slog.Logger) *Standby {
 	if log == nil {
@@ -101,7 +104,7 @@ func (s *Standby) switchTo(tag any) {
 }
 
 // Tag is the tag of the on-period in which connection conn was opened (nil
-// when unknown).
+// when unknown, or older than the last keptTags connections).
 func (s *Standby) Tag(conn int64) any {
 	s.mu.Lock()
 	defer s.mu.Unlock()
@@ -193,6 +196,9 @@ func (s *Standby) ReadContext(ctx context.Context, dst *gocv.Mat) (time.Duration
 			s.inner = ic
 			s.conn++
 			s.tags[s.conn] = s.curTag
+			// Only recent connections are asked about (frames still in
+			// the mailbox, a loss being closed): the map stays small.
+			delete(s.tags, s.conn-keptTags)
 			s.mu.Unlock()
 		}
 		s.readAny = true

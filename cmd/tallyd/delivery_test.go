@@ -53,6 +53,17 @@ log: {level: info}
 // id (the Nats-Msg-Id the stream de-duplicated on).
 func streamIDs(t *testing.T, url string) map[string]int {
 	t.Helper()
+	ids := map[string]int{}
+	for _, ev := range streamEvents(t, url) {
+		ids[ev.ID]++
+	}
+	return ids
+}
+
+// streamEvents reads every message of the site's stream, in order; each
+// message's Nats-Msg-Id must be its event's id.
+func streamEvents(t *testing.T, url string) []events.Event {
+	t.Helper()
 	nc, err := nats.Connect(url)
 	if err != nil {
 		t.Fatal(err)
@@ -73,7 +84,7 @@ func streamIDs(t *testing.T, url string) map[string]int {
 	if err != nil {
 		t.Fatal(err)
 	}
-	ids := map[string]int{}
+	var out []events.Event
 	for seq := info.State.FirstSeq; seq <= info.State.LastSeq && info.State.Msgs > 0; seq++ {
 		m, err := st.GetMsg(ctx, seq)
 		if err != nil {
@@ -86,9 +97,9 @@ func streamIDs(t *testing.T, url string) map[string]int {
 		if id := m.Header.Get(nats.MsgIdHdr); id != ev.ID {
 			t.Errorf("message %d: Nats-Msg-Id %q, event id %q", seq, id, ev.ID)
 		}
-		ids[ev.ID]++
+		out = append(out, ev)
 	}
-	return ids
+	return out
 }
 
 // streamMsgs is how many events the site's stream holds (-1: no stream yet).

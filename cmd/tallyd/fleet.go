@@ -9,8 +9,6 @@ import (
 	"strings"
 	"time"
 
-	"github.com/nats-io/nats.go/jetstream"
-
 	"tallyd/events/bus"
 	"tallyd/internal/fleet"
 )
@@ -23,24 +21,16 @@ const fleetSynopsis = "fleet --site NAME --nats URL[,URL...] [--json] [--timeout
 func cmdFleet(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("fleet", fleetSynopsis, stdout)
 	site := fs.String("site", "", "the shared site's name (as given to site push)")
-	url := fs.String("nats", "", "NATS server URL, or a comma-separated list of a cluster's URLs")
 	asJSON := fs.Bool("json", false, "print the status as one JSON object")
 	timeout := fs.Duration("timeout", 10*time.Second, "give up after this long")
-	creds := fs.String("creds", "", "NATS credentials file (user JWT and seed)")
-	nkeySeed := fs.String("nkey-seed", "", "file holding a user NKey seed to sign in with")
-	user := fs.String("user", "", "user name; the password from $"+envPassword+" or --password-file")
-	passwordFile := fs.String("password-file", "", "file holding the password for --user")
-	tokenFile := fs.String("token-file", "", "file holding the token (default $"+envToken+")")
-	tlsCA := fs.String("tls-ca", "", "CA certificates (PEM) the server's certificate must be signed by")
-	tlsCert := fs.String("tls-cert", "", "client certificate (PEM), with --tls-key")
-	tlsKey := fs.String("tls-key", "", "client private key (PEM), with --tls-cert")
+	bf := addBrokerFlags(fs, "fleet")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
 	switch {
 	case *site == "":
 		return usageErr("--site NAME is required (see tallyd fleet --help)")
-	case *url == "":
+	case *bf.url == "":
 		return usageErr("--nats URL is required: a shared site lives on an external NATS server (see tallyd fleet --help)")
 	case *timeout <= 0:
 		return usageErr("--timeout %v: must be above 0", *timeout)
@@ -48,29 +38,13 @@ func cmdFleet(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	if err := bus.ValidToken(*site); err != nil {
 		return usageErr("--site: %v", err)
 	}
-	auth, err := listenAuth(*url, stderr, authFlags{creds: *creds, nkeySeed: *nkeySeed, user: *user,
-		passwordFile: *passwordFile, tokenFile: *tokenFile})
-	if err != nil {
-		return err
-	}
-	switch {
-	case (*tlsCert == "") != (*tlsKey == ""):
-		return usageErr("--tls-cert and --tls-key go together")
-	case *tlsCA != "" || *tlsCert != "":
-		auth = append(auth, bus.TLSFiles(*tlsCA, *tlsCert, *tlsKey))
-	}
-
 	ctx, cancel := context.WithTimeout(ctx, *timeout)
 	defer cancel()
-	nc, err := bus.Connect(*url, "tallyd-fleet", nil, auth...)
+	nc, js, err := bf.connect("tallyd-fleet", stderr, nil)
 	if err != nil {
 		return err
 	}
 	defer nc.Close()
-	js, err := jetstream.New(nc)
-	if err != nil {
-		return err
-	}
 	st, err := fleet.ReadStatus(ctx, js, *site)
 	if errors.Is(err, fleet.ErrNoFleet) {
 		return usageErr("site %s: %v", *site, fleet.ErrNoFleet)

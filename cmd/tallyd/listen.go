@@ -125,14 +125,7 @@ func parseListen(args []string, stdout, stderr io.Writer) (*listenArgs, error) {
 	durable := fs.String("durable", "", "read the site's stream as this durable consumer: resume where it stopped, acknowledge each event once printed")
 	all := fs.Bool("all", false, "replay every event the site's stream keeps, then follow")
 	since := fs.String("since", "", "replay the site's stream from this time (RFC 3339, e.g. 2026-06-01T08:00:00Z), then follow")
-	creds := fs.String("creds", "", "NATS credentials file (user JWT and seed)")
-	nkeySeed := fs.String("nkey-seed", "", "file holding a user NKey seed to sign in with")
-	user := fs.String("user", "", "user name; the password from $"+envPassword+" or --password-file")
-	passwordFile := fs.String("password-file", "", "file holding the password for --user")
-	tokenFile := fs.String("token-file", "", "file holding the token (default $"+envToken+")")
-	tlsCA := fs.String("tls-ca", "", "CA certificates (PEM) the server's certificate must be signed by")
-	tlsCert := fs.String("tls-cert", "", "client certificate (PEM), with --tls-key")
-	tlsKey := fs.String("tls-key", "", "client private key (PEM), with --tls-cert")
+	signIn := addSignInFlags(fs)
 	if err := parseFlags(fs, args); err != nil {
 		return nil, err
 	}
@@ -156,16 +149,9 @@ func parseListen(args []string, stdout, stderr io.Writer) (*listenArgs, error) {
 		return nil, err
 	}
 	a.follow = follow
-	a.auth, err = listenAuth(*url, stderr, authFlags{creds: *creds, nkeySeed: *nkeySeed, user: *user,
-		passwordFile: *passwordFile, tokenFile: *tokenFile})
+	a.auth, err = signIn.options("listen", "--url", *url, stderr)
 	if err != nil {
 		return nil, err
-	}
-	switch {
-	case (*tlsCert == "") != (*tlsKey == ""):
-		return nil, usageErr("--tls-cert and --tls-key go together")
-	case *tlsCA != "" || *tlsCert != "":
-		a.auth = append(a.auth, bus.TLSFiles(*tlsCA, *tlsCert, *tlsKey))
 	}
 	return a, nil
 }
@@ -198,16 +184,50 @@ func followSettings(prefix, site, durable, since string, all bool) (*bus.FollowS
 	return f, nil
 }
 
-// authFlags are the credential flags as given.
-type authFlags struct{ creds, nkeySeed, user, passwordFile, tokenFile string }
+// signInFlags are the flags that sign in to a NATS server (listen, site,
+// run --site, fleet): a credentials file, an NKey seed, a user with a
+// password, or a token; and TLS.
+type signInFlags struct {
+	creds, nkeySeed, user, passwordFile, tokenFile *string
+	tlsCA, tlsCert, tlsKey                         *string
+}
 
-// listenAuth picks the credentials: at most one kind from the flags, the
-// password and token from files or the environment, never from the
-// command line, where the process list shows them. A URL holding
-// credentials still works, with a warning.
-func listenAuth(url string, stderr io.Writer, f authFlags) ([]bus.Option, error) {
+func addSignInFlags(fs *flags) *signInFlags {
+	return &signInFlags{
+		creds:        fs.String("creds", "", "NATS credentials file (user JWT and seed)"),
+		nkeySeed:     fs.String("nkey-seed", "", "file holding a user NKey seed to sign in with"),
+		user:         fs.String("user", "", "user name; the password from $"+envPassword+" or --password-file"),
+		passwordFile: fs.String("password-file", "", "file holding the password for --user"),
+		tokenFile:    fs.String("token-file", "", "file holding the token (default $"+envToken+")"),
+		tlsCA:        fs.String("tls-ca", "", "CA certificates (PEM) the server's certificate must be signed by"),
+		tlsCert:      fs.String("tls-cert", "", "client certificate (PEM), with --tls-key"),
+		tlsKey:       fs.String("tls-key", "", "client private key (PEM), with --tls-cert"),
+	}
+}
+
+// options are the connect options for url, given by the flag urlFlag of
+// command cmd: at most one kind of login from the flags, the password and
+// token from files or the environment, never from the command line, where
+// the process list shows them; a URL holding credentials still works, with
+// a warning; then TLS.
+func (f *signInFlags) options(cmd, urlFlag, url string, stderr io.Writer) ([]bus.Option, error) {
+	opts, err := f.login(cmd, urlFlag, url, stderr)
+	if err != nil {
+		return nil, err
+	}
+	switch {
+	case (*f.tlsCert == "") != (*f.tlsKey == ""):
+		return nil, usageErr("--tls-cert and --tls-key go together")
+	case *f.tlsCA != "" || *f.tlsCert != "":
+		opts = append(opts, bus.TLSFiles(*f.tlsCA, *f.tlsCert, *f.tlsKey))
+	}
+	return opts, nil
+}
+
+// login picks the credentials (see options).
+func (f *signInFlags) login(cmd, urlFlag, url string, stderr io.Writer) ([]bus.Option, error) {
 	var given []string
-	for _, g := range []struct{ flag, v string }{{"--creds", f.creds}, {"--nkey-seed", f.nkeySeed}, {"--user", f.user}, {"--token-file", f.tokenFile}} {
+	for _, g := range []struct{ flag, v string }{{"--creds", *f.creds}, {"--nkey-seed", *f.nkeySeed}, {"--user", *f.user}, {"--token-file", *f.tokenFile}} {
 		if g.v != "" {
 			given = append(given, g.flag)
 		}
@@ -215,36 +235,36 @@ func listenAuth(url string, stderr io.Writer, f authFlags) ([]bus.Option, error)
 	if len(given) > 1 {
 		return nil, usageErr("choose one way to sign in (given: %s)", strings.Join(given, ", "))
 	}
-	if f.passwordFile != "" && f.user == "" {
+	if *f.passwordFile != "" && *f.user == "" {
 		return nil, usageErr("--password-file needs --user")
 	}
 	inURL := bus.RedactURL(url) != url
 	if inURL {
 		if len(given) > 0 {
-			return nil, usageErr("--url holds credentials and %s is given too: choose one", given[0])
+			return nil, usageErr("%s holds credentials and %s is given too: choose one", urlFlag, given[0])
 		}
-		fmt.Fprintln(stderr, "tallyd listen: warning: the credentials in --url are visible in the process list; use --user with $"+envPassword+" or --password-file, or $"+envToken+" or --token-file")
+		fmt.Fprintln(stderr, "tallyd "+cmd+": warning: the credentials in "+urlFlag+" are visible in the process list; use --user with $"+envPassword+" or --password-file, or $"+envToken+" or --token-file")
 		return nil, nil
 	}
 	switch {
-	case f.creds != "":
-		return []bus.Option{bus.CredsFile(f.creds)}, nil
-	case f.nkeySeed != "":
-		return []bus.Option{bus.NKeySeedFile(f.nkeySeed)}, nil
-	case f.user != "":
+	case *f.creds != "":
+		return []bus.Option{bus.CredsFile(*f.creds)}, nil
+	case *f.nkeySeed != "":
+		return []bus.Option{bus.NKeySeedFile(*f.nkeySeed)}, nil
+	case *f.user != "":
 		pw := os.Getenv(envPassword)
-		if f.passwordFile != "" {
+		if *f.passwordFile != "" {
 			var err error
-			if pw, err = readSecret("--password-file", f.passwordFile); err != nil {
+			if pw, err = readSecret("--password-file", *f.passwordFile); err != nil {
 				return nil, err
 			}
 		}
 		if pw == "" {
 			return nil, usageErr("--user needs a password: set $%s or give --password-file", envPassword)
 		}
-		return []bus.Option{bus.UserPassword(f.user, pw)}, nil
-	case f.tokenFile != "":
-		tok, err := readSecret("--token-file", f.tokenFile)
+		return []bus.Option{bus.UserPassword(*f.user, pw)}, nil
+	case *f.tokenFile != "":
+		tok, err := readSecret("--token-file", *f.tokenFile)
 		if err != nil {
 			return nil, err
 		}

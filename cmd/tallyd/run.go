@@ -26,7 +26,7 @@ func cmdRun(ctx context.Context, args []string, stdout, stderr io.Writer) error 
 	member := fs.String("member", "", "with --site: this daemon's name, unique in the site (default hostname-pid)")
 	maxSources := fs.Int("max-sources", 0, "with --site: most sources this daemon counts (0: estimated from the detector's time at the sources' rates)")
 	stateDir := fs.String("state-dir", "", "with --site: this daemon's state folder (outbox, saved state); default .tallyd-MEMBER")
-	bf := addBrokerFlags(fs)
+	bf := addBrokerFlags(fs, "run")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}

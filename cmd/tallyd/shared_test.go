@@ -13,12 +13,10 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/jetstream"
 
 	"tallyd/capture/scene"
 	"tallyd/events"
-	"tallyd/events/bus"
 	"tallyd/internal/fleet"
 	"tallyd/internal/pipeline"
 	"tallyd/internal/testkit"
@@ -45,61 +43,6 @@ func sharedSiteYAML(url string, start time.Time, ttl string) string {
 	fmt.Fprintf(&b, "fleet: {lease_ttl: %s}\n", ttl)
 	fmt.Fprintf(&b, "output: {nats: {url: %q, jetstream: {replicas: 3}}}\nlog: {level: info}\n", url)
 	return b.String()
-}
-
-// streamEvent is one message of the site's stream.
-type streamEvent struct {
-	msgID string
-	ev    events.Event
-}
-
-// readStream reads every message of the site's stream.
-func readStream(t *testing.T, url string) []streamEvent {
-	t.Helper()
-	nc, err := nats.Connect(url)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer nc.Close()
-	js, err := jetstream.New(nc)
-	if err != nil {
-		t.Fatal(err)
-	}
-	ctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
-	defer cancel()
-	name, _ := bus.StreamName("tallyd", "ferry-terminal")
-	st, err := js.Stream(ctx, name)
-	if err != nil {
-		t.Fatal(err)
-	}
-	info, err := st.Info(ctx)
-	if err != nil {
-		t.Fatal(err)
-	}
-	cons, err := st.OrderedConsumer(ctx, jetstream.OrderedConsumerConfig{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	var out []streamEvent
-	for uint64(len(out)) < info.State.Msgs {
-		msgs, err := cons.Fetch(500, jetstream.FetchMaxWait(5*time.Second))
-		if err != nil {
-			t.Fatal(err)
-		}
-		n := 0
-		for m := range msgs.Messages() {
-			n++
-			ev, err := events.Parse(m.Data())
-			if err != nil {
-				t.Fatalf("stream message %s: %v", m.Subject(), err)
-			}
-			out = append(out, streamEvent{msgID: m.Headers().Get(nats.MsgIdHdr), ev: ev})
-		}
-		if n == 0 {
-			t.Fatalf("stream read stalled at %d of %d messages", len(out), info.State.Msgs)
-		}
-	}
-	return out
 }
 
 // fleetStatus reads the site's lease bucket.
@@ -166,15 +109,7 @@ func TestSharedSite(t *testing.T) {
 	if out, errOut, code := cli(t, "site", "push", "-c", site, "--nats", cl.URL(0)); code != 0 {
 		t.Fatalf("site push: exit %d\n%s%s", code, out, errOut)
 	}
-	nc, err := nats.Connect(cl.URL(1))
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer nc.Close()
-	js, err := jetstream.New(nc)
-	if err != nil {
-		t.Fatal(err)
-	}
+	_, js := testkit.JetStream(t, cl.URL(1))
 
 	var d [3]*child
 	for i := range d {
@@ -272,27 +207,24 @@ func TestSharedSite(t *testing.T) {
 	t.Logf("d1 (paused %v at %s, resumed %s): %s", ttl+3*time.Second, pausedAt.Format("15:04:05.000"), resumedAt.Format("15:04:05.000"),
 		grepLines(d[1].errOut.String(), "lease lost", "events refused", "source released"))
 
-	msgs := readStream(t, cl.URL(0))
+	msgs := streamEvents(t, cl.URL(0)) // each message's Nats-Msg-Id checked against its event id
 	ids := map[string]int{}
 	bySource := map[string][]events.Event{}
 	var areas []events.Event
 	newRule := false
-	for _, m := range msgs {
-		if m.ev.Data.Rule == "gate1-low" && m.ev.Data.Kind == events.KindReset && m.ev.Data.Reason == events.ReasonRuleNew {
+	for _, ev := range msgs {
+		if ev.Data.Rule == "gate1-low" && ev.Data.Kind == events.KindReset && ev.Data.Reason == events.ReasonRuleNew {
 			newRule = true
 		}
-		ids[m.msgID]++
-		if ids[m.msgID] == 2 {
-			t.Errorf("event %s twice in the stream", m.msgID)
+		ids[ev.ID]++
+		if ids[ev.ID] == 2 {
+			t.Errorf("event %s twice in the stream", ev.ID)
 		}
-		if m.msgID != m.ev.ID {
-			t.Errorf("message id %s, event id %s", m.msgID, m.ev.ID)
-		}
-		if m.ev.Data.Kind == events.KindOccupancy {
-			areas = append(areas, m.ev)
+		if ev.Data.Kind == events.KindOccupancy {
+			areas = append(areas, ev)
 			continue
 		}
-		bySource[m.ev.Data.Source] = append(bySource[m.ev.Data.Source], m.ev)
+		bySource[ev.Data.Source] = append(bySource[ev.Data.Source], ev)
 	}
 	t.Logf("%d events in the stream, %d area events", len(msgs), len(areas))
 	if !newRule {
@@ -307,11 +239,11 @@ func TestSharedSite(t *testing.T) {
 	offTruth := 0 // crossings missed outside gaps, or counted twice, over the site
 	// d1's SIGTERM hands its cameras to d2 cleanly: released, at once.
 	fromStop := 0
-	for _, m := range msgs {
-		if h := m.ev.Data.Handover; h != nil && h.From == "d1" && m.ev.Time.After(d1StopAt) {
+	for _, ev := range msgs {
+		if h := ev.Data.Handover; h != nil && h.From == "d1" && ev.Time.After(d1StopAt) {
 			fromStop++
 			if h.Cause != "released" || h.GapS > 1 {
-				t.Errorf("%s after d1's SIGTERM: %+v, want released within a second", m.ev.Data.Source, *h)
+				t.Errorf("%s after d1's SIGTERM: %+v, want released within a second", ev.Data.Source, *h)
 			}
 		}
 	}
@@ -540,12 +472,7 @@ func TestSitePushRefuses(t *testing.T) {
 	if code != 2 || !strings.Contains(errOut, "one.yaml") || !strings.Contains(errOut, "output.nats.url") || !strings.Contains(errOut, "sources[1].file") {
 		t.Errorf("site push of a one-daemon site: exit %d\n%s", code, errOut)
 	}
-	nc, err := nats.Connect(srv.URL())
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer nc.Close()
-	js, _ := jetstream.New(nc)
+	_, js := testkit.JetStream(t, srv.URL())
 	if _, err := js.KeyValue(context.Background(), fleet.SitesBucket); err == nil {
 		t.Error("a refused push created the site bucket")
 	}
@@ -595,12 +522,7 @@ func TestSharedSiteRebuild(t *testing.T) {
 			t.Logf("daemon stderr:\n%s", d.errOut.String())
 		}
 	})
-	nc, err := nats.Connect(srv.URL())
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer nc.Close()
-	js, _ := jetstream.New(nc)
+	_, js := testkit.JetStream(t, srv.URL())
 	held := func(want ...string) func() bool {
 		return func() bool {
 			h := holders(fleetStatus(t, js))
@@ -630,9 +552,9 @@ func TestSharedSiteRebuild(t *testing.T) {
 		t.Errorf("no rebuild for revision 2 in the log:\n%s", grepLines(logs, "site", "revision"))
 	}
 	var causes []string
-	for _, m := range readStream(t, srv.URL()) {
-		if h := m.ev.Data.Handover; h != nil {
-			causes = append(causes, m.ev.Data.Source+":"+h.Cause)
+	for _, ev := range streamEvents(t, srv.URL()) {
+		if h := ev.Data.Handover; h != nil {
+			causes = append(causes, ev.Data.Source+":"+h.Cause)
 		}
 	}
 	want := []string{"cam1:first", "cam1:released", "cam2:first"}

@@ -8,7 +8,6 @@ import (
 	"log/slog"
 	"os"
 	"path/filepath"
-	"sort"
 	"strings"
 	"time"
 
@@ -28,25 +27,18 @@ import (
 // `tallyd run --site NAME` reads it, follows its changes and counts the
 // sources the leases give it (internal/fleet).
 
-// brokerFlags are the flags that reach the site's NATS server.
+// brokerFlags are the flags that reach a shared site's NATS server: --nats
+// and the sign-in flags.
 type brokerFlags struct {
-	url                                            *string
-	creds, nkeySeed, user, passwordFile, tokenFile *string
-	tlsCA, tlsCert, tlsKey                         *string
+	cmd    string // the command, for the warning about credentials in --nats
+	url    *string
+	signIn *signInFlags
 }
 
-func addBrokerFlags(fs *flags) *brokerFlags {
-	return &brokerFlags{
-		url:          fs.String("nats", "", "NATS server(s) of the site, e.g. nats://10.0.0.5:4222 (comma-separated for several)"),
-		creds:        fs.String("creds", "", "NATS credentials file (user JWT and seed)"),
-		nkeySeed:     fs.String("nkey-seed", "", "file holding a user NKey seed to sign in with"),
-		user:         fs.String("user", "", "user name; the password from $"+envPassword+" or --password-file"),
-		passwordFile: fs.String("password-file", "", "file holding the password for --user"),
-		tokenFile:    fs.String("token-file", "", "file holding the token (default $"+envToken+")"),
-		tlsCA:        fs.String("tls-ca", "", "CA certificates (PEM) the server's certificate must be signed by"),
-		tlsCert:      fs.String("tls-cert", "", "client certificate (PEM), with --tls-key"),
-		tlsKey:       fs.String("tls-key", "", "client private key (PEM), with --tls-cert"),
-	}
+func addBrokerFlags(fs *flags, cmd string) *brokerFlags {
+	return &brokerFlags{cmd: cmd,
+		url:    fs.String("nats", "", "NATS server(s) of the site, e.g. nats://10.0.0.5:4222 (comma-separated for several)"),
+		signIn: addSignInFlags(fs)}
 }
 
 // connect connects to the site's server with the flags' credentials.
@@ -54,16 +46,9 @@ func (b *brokerFlags) connect(name string, stderr io.Writer, log *slog.Logger) (
 	if *b.url == "" {
 		return nil, nil, usageErr("--nats URL is required: the NATS server that holds the site bucket")
 	}
-	opts, err := listenAuth(*b.url, stderr, authFlags{creds: *b.creds, nkeySeed: *b.nkeySeed, user: *b.user,
-		passwordFile: *b.passwordFile, tokenFile: *b.tokenFile})
+	opts, err := b.signIn.options(b.cmd, "--nats", *b.url, stderr)
 	if err != nil {
 		return nil, nil, err
-	}
-	switch {
-	case (*b.tlsCert == "") != (*b.tlsKey == ""):
-		return nil, nil, usageErr("--tls-cert and --tls-key go together")
-	case *b.tlsCA != "" || *b.tlsCert != "":
-		opts = append(opts, bus.TLSFiles(*b.tlsCA, *b.tlsCert, *b.tlsKey))
 	}
 	nc, err := bus.Connect(*b.url, name, log, opts...)
 	if err != nil {
@@ -94,7 +79,7 @@ func cmdSite(ctx context.Context, args []string, stdout, stderr io.Writer) error
 	}
 	fs := newFlags("site push", "site push -c FILE --nats URL", stdout)
 	cfgPath := fs.String("c", "", "site file (YAML) to check and store under its site name")
-	bf := addBrokerFlags(fs)
+	bf := addBrokerFlags(fs, "site")
 	if err := parseFlags(fs, args[1:]); err != nil {
 		return err
 	}
@@ -155,7 +140,7 @@ func cmdSite(ctx context.Context, args []string, stdout, stderr io.Writer) error
 func siteShow(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	fs := newFlags("site show", "site show --site NAME --nats URL", stdout)
 	site := fs.String("site", "", "site name")
-	bf := addBrokerFlags(fs)
+	bf := addBrokerFlags(fs, "site")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -167,7 +152,11 @@ func siteShow(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 		return err
 	}
 	defer nc.Close()
-	v, err := readSite(ctx, js, *site, *bf.url)
+	sites, err := openSites(ctx, js)
+	if err != nil {
+		return err
+	}
+	v, err := readSite(ctx, sites, *site, *bf.url)
 	if err != nil {
 		return err
 	}
@@ -176,14 +165,17 @@ func siteShow(ctx context.Context, args []string, stdout, stderr io.Writer) erro
 	return err
 }
 
-// readSite reads the current version of a site from the bucket.
-func readSite(ctx context.Context, js jetstream.JetStream, site, url string) (fleet.SiteVersion, error) {
+// openSites opens the site bucket (created when absent).
+func openSites(ctx context.Context, js jetstream.JetStream) (*fleet.Sites, error) {
 	cctx, cancel := context.WithTimeout(ctx, 10*time.Second)
 	defer cancel()
-	sites, err := fleet.OpenSites(cctx, js, 0)
-	if err != nil {
-		return fleet.SiteVersion{}, err
-	}
+	return fleet.OpenSites(cctx, js, 0)
+}
+
+// readSite reads the current version of a site from the bucket.
+func readSite(ctx context.Context, sites *fleet.Sites, site, url string) (fleet.SiteVersion, error) {
+	cctx, cancel := context.WithTimeout(ctx, 10*time.Second)
+	defer cancel()
 	v, err := sites.Get(cctx, site)
 	if errors.Is(err, fleet.ErrNoSite) {
 		return v, badFile(fmt.Errorf("site %q is not in bucket %s on %s: store it first with tallyd site push -c FILE --nats URL", site, fleet.SitesBucket, bus.RedactURL(url)))
@@ -236,7 +228,11 @@ func runShared(ctx context.Context, a sharedRun, stdout, stderr io.Writer) error
 		return err
 	}
 	defer nc.Close()
-	v, err := readSite(ctx, js, a.site, *a.broker.url)
+	sites, err := openSites(ctx, js)
+	if err != nil {
+		return err
+	}
+	v, err := readSite(ctx, sites, a.site, *a.broker.url)
 	if err != nil {
 		return err
 	}
@@ -247,16 +243,12 @@ func runShared(ctx context.Context, a sharedRun, stdout, stderr io.Writer) error
 	log := newLogger(cfg, stderr).With("member", a.member)
 	wctx, stopWatch := context.WithCancel(ctx)
 	defer stopWatch()
-	sites, err := fleet.OpenSites(wctx, js, 0)
-	if err != nil {
-		return err
-	}
 	versions, err := sites.Watch(wctx, a.site)
 	if err != nil {
 		return err
 	}
 	// A push between the first read and the watch: start from it.
-	if cur, err := readSite(ctx, js, a.site, *a.broker.url); err == nil && cur.Revision > v.Revision {
+	if cur, err := readSite(ctx, sites, a.site, *a.broker.url); err == nil && cur.Revision > v.Revision {
 		if next, err := parseSite(a.site, cur, a.stateDir); err == nil {
 			cfg, v = next, cur
 		}
@@ -268,7 +260,9 @@ func runShared(ctx context.Context, a sharedRun, stdout, stderr io.Writer) error
 		total = addSummary(total, sum)
 		if err != nil || next == nil {
 			printTable(stdout, total, time.Since(start))
-			return outcomeShared(err, total)
+			// Stopped by a signal is a normal stop; events lost or a
+			// failure are not.
+			return outcome(err, total, false)
 		}
 		cfg, v.Revision = next.cfg, next.rev
 	}
@@ -304,11 +298,7 @@ func runSharedOnce(ctx context.Context, a sharedRun, js jetstream.JetStream, cfg
 	defer stopRun()
 	runErr := make(chan error, 1)
 	go func() { runErr <- p.Run(runCtx) }()
-	areas := make([]string, 0, len(cfg.Areas()))
-	for name := range cfg.Areas() {
-		areas = append(areas, name)
-	}
-	sort.Strings(areas)
+	areas := cfg.AreaNames()
 	// The member lives until Leave, not until ctx: at SIGTERM it must hand
 	// its cameras over cleanly (a cancelled member lets its leases expire).
 	m, err := fleet.Join(context.WithoutCancel(ctx), js, fleet.Options{Site: cfg.Site, Member: a.member, TTL: cfg.Fleet.LeaseTTL.Duration,
@@ -386,11 +376,4 @@ func addSummary(a, b pipeline.Summary) pipeline.Summary {
 		a.Rules = b.Rules
 	}
 	return a
-}
-
-// outcomeShared: a shared daemon stopped by a signal is a normal stop;
-// events lost or a failure are not.
-func outcomeShared(err error, s pipeline.Summary) error {
-	s.Rules = nil
-	return outcome(err, s, false)
 }

@@ -16,17 +16,7 @@ import (
 // connect opens a client on the whole cluster that reconnects fast.
 func connect(t testing.TB, urls string) (*nats.Conn, jetstream.JetStream) {
 	t.Helper()
-	nc, err := nats.Connect(urls, nats.ReconnectWait(50*time.Millisecond), nats.MaxReconnects(-1),
-		nats.Timeout(time.Second))
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(nc.Close)
-	js, err := jetstream.New(nc)
-	if err != nil {
-		t.Fatal(err)
-	}
-	return nc, js
+	return testkit.JetStream(t, urls, nats.ReconnectWait(50*time.Millisecond), nats.MaxReconnects(-1), nats.Timeout(time.Second))
 }
 
 // ledger checks the fencing promise across members: when a hold starts, no

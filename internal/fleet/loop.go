@@ -68,11 +68,7 @@ func (m *Member) loop() {
 // ended): the leases expire as a dead daemon's would.
 func (m *Member) abandon() {
 	for _, h := range m.Holds() {
-		_, callStop := h.end()
-		m.mu.Lock()
-		delete(m.holds, h.key)
-		m.mu.Unlock()
-		if callStop {
+		if _, callStop := m.drop(h); callStop {
 			m.wg.Add(1)
 			go func() {
 				defer m.wg.Done()
@@ -515,13 +511,7 @@ func (m *Member) release(h *Hold, cause Cause) {
 // finish ends a released hold whose Stop returned: a final write saying
 // when it was released, then the delete, both conditional on our revision.
 func (m *Member) finish(h *Hold) {
-	ended, _ := h.end()
-	m.mu.Lock()
-	if m.holds[h.key] == h {
-		delete(m.holds, h.key)
-	}
-	m.mu.Unlock()
-	if !ended {
+	if ended, _ := m.drop(h); !ended {
 		return // lost while stopping
 	}
 	h.mu.Lock()

@@ -480,15 +480,21 @@ func (m *Member) watchdog() {
 	}
 }
 
-// lose ends h after its lease was lost and calls Holder.Stop with CauseLost
-// (unless a clean release already called Stop).
-func (m *Member) lose(h *Hold, why string) {
-	ended, callStop := h.end()
+// drop ends h (see Hold.end) and takes it out of the member's holds.
+func (m *Member) drop(h *Hold) (ended, callStop bool) {
+	ended, callStop = h.end()
 	m.mu.Lock()
 	if m.holds[h.key] == h {
 		delete(m.holds, h.key)
 	}
 	m.mu.Unlock()
+	return ended, callStop
+}
+
+// lose ends h after its lease was lost and calls Holder.Stop with CauseLost
+// (unless a clean release already called Stop).
+func (m *Member) lose(h *Hold, why string) {
+	ended, callStop := m.drop(h)
 	if !ended {
 		return
 	}

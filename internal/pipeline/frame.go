@@ -42,10 +42,18 @@ func (p *Pipeline) process(ctx context.Context, jobs []job) error {
 			f.Close()
 			continue
 		}
-		if sh := sr.shared; sh == nil || sh.holdOf(f.Conn) == sh.active {
+		// A shared source's first frame under a hold it has not counted
+		// under yet (shared.go).
+		var newHold *holdRun
+		if sh := sr.shared; sh != nil {
+			if hr := sh.holdOf(f.Conn); hr != sh.active {
+				newHold = hr
+			}
+		}
+		if newHold == nil {
 			p.applyReload(sr)
 		} else {
-			sr.reloaded.Store(false) // a new hold starts with the rules in force
+			sr.reloaded.Store(false) // the new hold starts with the rules in force
 		}
 		// 2. A loss report that a newer frame overtook: the old connection's
 		// tracks end first.
@@ -53,17 +61,14 @@ func (p *Pipeline) process(ctx context.Context, jobs []job) error {
 			p.closeLost(sr, sr.cursor.conn)
 		}
 		sr.cursor.conn = f.Conn
-		if w, h := f.Mat.Cols(), f.Mat.Rows(); w != sr.stages.w || h != sr.stages.h {
+		if newHold != nil {
+			p.beginHold(sr, f, newHold) // fresh tracks and rules for this frame's size
+		} else if w, h := f.Mat.Cols(), f.Mat.Rows(); w != sr.stages.w || h != sr.stages.h {
 			if sr.stages.engine != nil {
 				p.closeStays(sr, events.ReasonSourceLost)
 				sr.resetTracker()
 			}
 			sr.setupRules(p, w, h)
-		}
-		if sh := sr.shared; sh != nil {
-			if hr := sh.holdOf(f.Conn); hr != nil && hr != sh.active {
-				p.beginHold(sr, f, hr)
-			}
 		}
 		if why := sr.admit(f); why != "" { // 3
 			sr.count.drop(why)

@@ -2,15 +2,12 @@ package pipeline
 
 import (
 	"context"
-	"encoding/json"
 	"fmt"
-	"strings"
 	"sync"
 	"sync/atomic"
 	"time"
 
 	"github.com/nats-io/nats.go/jetstream"
-	"gocv.io/x/gocv"
 
 	"tallyd/capture"
 	"tallyd/capture/scene"
@@ -113,8 +110,7 @@ func (sh *sharedSource) valid(t time.Time) (*holdRun, bool) {
 // Start implements fleet.Holder: a source is read from now on (its totals
 // are read from the bucket first), an area is kept.
 func (p *Pipeline) Start(h *fleet.Hold) {
-	switch h.Kind {
-	case fleet.KindArea:
+	if h.Kind == fleet.KindArea {
 		p.runArea(h.Name, h)
 		return
 	}
@@ -153,21 +149,23 @@ func (p *Pipeline) Stop(h *fleet.Hold, cause fleet.Cause) {
 	if sr == nil || sr.shared == nil {
 		return
 	}
+	// Start's switching on and this switching off are ordered by the lock.
 	sr.shared.mu.Lock()
 	hr := sr.shared.holds[h]
+	if hr != nil {
+		hr.ended.Store(true)
+		sr.shared.standby.Off(hr)
+	}
 	sr.shared.mu.Unlock()
 	if hr == nil {
 		return
 	}
+	// The hold stays listed until the state is written (stateWritable).
 	defer func() {
 		sr.shared.mu.Lock()
 		delete(sr.shared.holds, h)
 		sr.shared.mu.Unlock()
 	}()
-	sr.shared.mu.Lock()
-	hr.ended.Store(true)
-	sr.shared.standby.Off(hr)
-	sr.shared.mu.Unlock()
 	deadline := time.Now().Add(stopWait)
 	for p.sched.Load() != nil && hr.began.Load() && !hr.closed.Load() && time.Now().Before(deadline) {
 		time.Sleep(10 * time.Millisecond)
@@ -227,20 +225,15 @@ func (p *Pipeline) savedState(source string) map[string]events.RuleState {
 	ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
 	defer cancel()
 	all, err := kv.Match(ctx, source+".>")
+	var saved map[string]map[string]events.RuleState
+	if err == nil {
+		saved, err = decodeStates(all)
+	}
 	if err != nil {
 		p.log.Warn("live state not read; the source's totals start at 0", "source", source, "err", err)
 		return nil
 	}
-	out := map[string]events.RuleState{}
-	for k, v := range all {
-		var st events.RuleState
-		if err := json.Unmarshal(v, &st); err != nil {
-			p.log.Warn("live state entry not readable; skipped", "key", k, "err", err)
-			continue
-		}
-		out[strings.TrimPrefix(k, source+".")] = st
-	}
-	return out
+	return saved[source]
 }
 
 // stateWritable is the state sink's gate on a shared site: a source's live
@@ -370,34 +363,28 @@ func (p *Pipeline) SharedSources() []string {
 }
 
 // HoldCapacity is how many of the site's shared sources this daemon can
-// count at their target rates: the detect workers' CPU time (80% of it)
-// over the costliest source's need, the detector timed on a mid-grey frame
-// of each source's size (a stream of unknown size as 1280x720) at its fps
-// (a stream without fps as 10). At least 1.
+// count at their target rates: 80% of the detect workers' CPU time over the
+// costliest source's need, the detector timed on a frame of each source
+// size (measureDetect; a stream of unknown size counts as 1280x720, an
+// unknown rate as 10 fps). At least 1.
 func (p *Pipeline) HoldCapacity(ctx context.Context) (int, error) {
-	var need float64 // CPU ms per second of the costliest source
+	caps := make([]SourceCapacity, len(p.sources))
 	for i, sr := range p.sources {
-		w, h := sr.info.Width, sr.info.Height
-		if w <= 0 || h <= 0 {
-			w, h = 1280, 720
+		c := sourceCapacity(p.cfg.Sources[i], sr.info)
+		if c.Width <= 0 || c.Height <= 0 {
+			c.Width, c.Height = 1280, 720
 		}
-		fps := p.cfg.Sources[i].FPS
-		if fps <= 0 && sr.info.FPS > 0 {
-			fps = sr.info.FPS
+		if c.DetectFPS <= 0 {
+			c.DetectFPS = 10
 		}
-		if fps <= 0 {
-			fps = 10
-		}
-		mat := gocv.NewMatWithSizeFromScalar(gocv.NewScalar(128, 128, 128, 0), h, w, gocv.MatTypeCV8UC3)
-		msPerFrame, err := timeDetect(ctx, p.det, mat)
-		_ = mat.Close()
-		if err != nil {
-			return 0, err
-		}
-		need = max(need, msPerFrame*fps)
+		caps[i] = c
 	}
-	if f, ok := p.det.(Forgetter); ok {
-		f.Forget(probeSource)
+	if err := measureDetect(ctx, p.det, caps, nil); err != nil {
+		return 0, err
+	}
+	var need float64 // CPU ms per second of the costliest source
+	for _, c := range caps {
+		need = max(need, c.DetectMs*c.DetectFPS)
 	}
 	if need <= 0 {
 		return len(p.sources), nil

@@ -9,9 +9,6 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats.go"
-	"github.com/nats-io/nats.go/jetstream"
-
 	"tallyd/capture"
 	"tallyd/internal/fleet"
 	"tallyd/internal/testkit"
@@ -31,15 +28,7 @@ func BenchmarkSharedHandover(b *testing.B) {
 	const kills = 20
 	const ttl = 2 * time.Second
 	srv := testkit.StartNATSServer(b, true)
-	nc, err := nats.Connect(srv.URL())
-	if err != nil {
-		b.Fatal(err)
-	}
-	defer nc.Close()
-	js, err := jetstream.New(nc)
-	if err != nil {
-		b.Fatal(err)
-	}
+	_, js := testkit.JetStream(b, srv.URL())
 	dir := b.TempDir()
 	start := time.Now().Truncate(time.Second)
 	type daemon struct {

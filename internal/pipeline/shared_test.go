@@ -9,9 +9,6 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats.go"
-	"github.com/nats-io/nats.go/jetstream"
-
 	"tallyd/capture"
 	"tallyd/detect"
 	"tallyd/events"
@@ -58,15 +55,7 @@ func TestSharedHandover(t *testing.T) {
 		t.Skip("a 25 s run")
 	}
 	srv := testkit.StartNATSServer(t, true)
-	nc, err := nats.Connect(srv.URL())
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer nc.Close()
-	js, err := jetstream.New(nc)
-	if err != nil {
-		t.Fatal(err)
-	}
+	_, js := testkit.JetStream(t, srv.URL())
 	dir := t.TempDir()
 	start := time.Now().Add(3 * time.Second).Truncate(time.Second)
 	type member struct {

@@ -160,12 +160,8 @@ func loadState(ctx context.Context, kv *bus.State, file string) (map[string]map[
 		if err != nil {
 			return nil, "", fmt.Errorf("read the live state: %w", err)
 		}
-		for k, v := range all {
-			var st events.RuleState
-			if err := json.Unmarshal(v, &st); err != nil {
-				return nil, "", fmt.Errorf("live state %s: %w", k, err)
-			}
-			flat[k] = st
+		if flat, err = decodeFlat(all); err != nil {
+			return nil, "", err
 		}
 		from = "bucket"
 	}
@@ -182,6 +178,37 @@ func loadState(ctx context.Context, kv *bus.State, file string) (map[string]map[
 			from = file
 		}
 	}
+	return bySource(flat), from, nil
+}
+
+// decodeFlat decodes the bucket's values: <source>.<rule> -> state. Keys
+// without a dot (area/<name>) are not rule states and are skipped.
+func decodeFlat(all map[string][]byte) (map[string]events.RuleState, error) {
+	flat := map[string]events.RuleState{}
+	for k, v := range all {
+		if !strings.Contains(k, ".") {
+			continue
+		}
+		var st events.RuleState
+		if err := json.Unmarshal(v, &st); err != nil {
+			return nil, fmt.Errorf("live state %s: %w", k, err)
+		}
+		flat[k] = st
+	}
+	return flat, nil
+}
+
+// decodeStates decodes the bucket's values as source -> rule -> state.
+func decodeStates(all map[string][]byte) (map[string]map[string]events.RuleState, error) {
+	flat, err := decodeFlat(all)
+	if err != nil {
+		return nil, err
+	}
+	return bySource(flat), nil
+}
+
+// bySource splits <source>.<rule> keys.
+func bySource(flat map[string]events.RuleState) map[string]map[string]events.RuleState {
 	out := map[string]map[string]events.RuleState{}
 	for k, st := range flat {
 		source, rule, ok := strings.Cut(k, ".")
@@ -193,7 +220,7 @@ func loadState(ctx context.Context, kv *bus.State, file string) (map[string]map[
 		}
 		out[source][rule] = st
 	}
-	return out, from, nil
+	return out
 }
 
 // LiveState reads the site's live state without running anything: from the

@@ -10,6 +10,8 @@ import (
 	"time"
 
 	"github.com/nats-io/nats-server/v2/server"
+	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
 )
 
 // Cluster is a JetStream cluster of in-process NATS servers routed to each
@@ -179,4 +181,20 @@ func (c *Cluster) Close() {
 	for i := range c.opts {
 		c.Shutdown(i)
 	}
+}
+
+// JetStream connects a test client to url (one server or a comma-separated
+// list) and opens JetStream on it; the connection closes when the test ends.
+func JetStream(t testing.TB, url string, opts ...nats.Option) (*nats.Conn, jetstream.JetStream) {
+	t.Helper()
+	nc, err := nats.Connect(url, opts...)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(nc.Close)
+	js, err := jetstream.New(nc)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return nc, js
 }
